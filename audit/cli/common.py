@@ -1,0 +1,85 @@
+"""What every command shares: the consoles, error handling, JSON output, common options."""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from collections.abc import Callable
+
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+
+from ..errors import InputError
+from ..scenario import Scenario, load_scenario
+
+#: Exit statuses shared by all commands.
+EXIT_OK, EXIT_FINDING, EXIT_BAD_INPUT = 0, 1, 2
+
+#: Tables are wide; when the output is not a terminal, do not squeeze them to 80 columns.
+PIPE_WIDTH = 200
+
+out = Console(highlight=False)
+err = Console(stderr=True, highlight=False)
+if not out.is_terminal:
+    out = Console(highlight=False, width=PIPE_WIDTH)
+
+
+def add_command(subparsers, name: str, summary: str, description: str, examples: str,
+                handler: Callable[[argparse.Namespace], int]) -> argparse.ArgumentParser:
+    """A sub-command parser with a newcomer-friendly description and worked examples."""
+    parser = subparsers.add_parser(
+        name, help=summary, description=description, epilog=f"examples:\n{examples}",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.set_defaults(handler=handler)
+    return parser
+
+
+def add_scenario_argument(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("scenario", metavar="SCENARIO",
+                        help="scenario folder (holding scenario.toml) or the path of a scenario .toml file")
+
+
+def add_json_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--json", action="store_true",
+                        help="print one JSON object on standard output instead of tables (for scripts)")
+
+
+def run_handler(args: argparse.Namespace) -> int:
+    """Run a command's handler; bad input becomes one line on stderr and exit status 2."""
+    try:
+        return args.handler(args)
+    except InputError as error:
+        err.print(f"[bold red]fitaudit: error:[/] {error}", markup=True, soft_wrap=True)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        err.print("fitaudit: interrupted")
+        return 130
+
+
+def open_scenario(args: argparse.Namespace) -> Scenario:
+    """Load the scenario named on the command line and show its warnings (not in JSON mode)."""
+    scenario = load_scenario(args.scenario)
+    for warning in scenario.warnings:
+        err.print(f"[yellow]warning:[/] {warning}", soft_wrap=True)
+    return scenario
+
+
+def print_json(payload: dict) -> None:
+    """Strict JSON (no NaN) on standard output."""
+    sys.stdout.write(json.dumps(payload, indent=2, allow_nan=False) + "\n")
+
+
+def progress_bar(what: str, *, disable: bool = False) -> Progress:
+    """A rich progress bar on stderr: count done, rate, elapsed and remaining time."""
+    return Progress(
+        TextColumn(f"[bold]{what}"), BarColumn(), MofNCompleteColumn(),
+        TextColumn("{task.fields[rate]}"), TimeElapsedColumn(), TextColumn("left"), TimeRemainingColumn(),
+        console=err, disable=disable, transient=False,
+    )
+
+
+def number(value: float, digits: int = 6) -> str:
+    """A number for tables: significant digits, '—' for missing."""
+    if value is None or value != value:
+        return "—"
+    return f"{value:.{digits}g}"

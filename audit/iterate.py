@@ -1,0 +1,271 @@
+"""The iteration loop behind ``fit_batch``: one block of runs, vectorised, until each has an outcome.
+
+Every iteration evaluates the derivatives of the runs still working, factorises their step
+problems together, moves them, and classifies the ones whose fate is decided. Finished runs are
+written out and dropped from the working arrays at once, so the cost per iteration follows the
+number of runs left.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .linsolve import StepSystem
+from .outcomes import Outcome
+from .problem import FLOOR_FRACTION, Problem
+
+#: A parameter past this multiple of its typical magnitude (plus its start) has run away.
+DIVERGENCE_FACTOR = 1e8
+#: A residual sum of squares past this multiple of the larger of the start's and the data's own
+#: sum of squares has blown up.
+SSR_BLOWUP = 1e12
+#: Consecutive reversing, non-improving steps that make a run oscillating.
+OSCILLATION_WINDOW = 6
+#: Levenberg-Marquardt: starting damping (the scaled Gram matrix has a unit diagonal) and the
+#: number of trial steps per iteration before the iteration is given up.
+DAMPING_START = 1e-3
+DAMPING_RETRIES = 12
+
+
+@dataclass(frozen=True)
+class Runs:
+    """Validated inputs of one ``fit_batch`` call (see its docstring for shapes)."""
+
+    starts: np.ndarray
+    step_factor: np.ndarray
+    y: np.ndarray
+    x: np.ndarray
+    sqrt_weights: np.ndarray | None
+    free: np.ndarray
+    typical: np.ndarray
+
+
+class _Working:
+    """Per-run arrays of the runs still iterating; ``keep`` drops the finished ones.
+
+    Arrays given as ``None`` (shared observations, weights or predictors) are not per run.
+    """
+
+    def __init__(self, **arrays: np.ndarray | None) -> None:
+        self.per_run: list[str] = []
+        for name, value in arrays.items():
+            self.add(name, value)
+
+    def add(self, name: str, value: np.ndarray | None) -> None:
+        setattr(self, name, value)
+        if value is not None:
+            self.per_run.append(name)
+
+    def keep(self, mask: np.ndarray) -> None:
+        for name in self.per_run:
+            setattr(self, name, getattr(self, name)[mask])
+
+    def __len__(self) -> int:
+        return len(self.index)
+
+
+def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: str,
+              tol: float, max_iter: int, history: int) -> None:
+    """Iterate the runs in ``block`` to their outcomes, writing them into ``result`` (a BatchFit)."""
+    free = runs.free
+    shared_y = runs.y if runs.y.ndim == 1 else None
+    shared_w = runs.sqrt_weights if runs.sqrt_weights is not None and runs.sqrt_weights.ndim == 1 else None
+    shared_x = runs.x if runs.x.ndim == problem.x.ndim else None
+    typical = runs.typical[block]
+    starts = runs.starts[block]
+    state = _Working(
+        index=block,
+        params=starts.copy(),
+        alpha=runs.step_factor[block],
+        floor=FLOOR_FRACTION * typical,
+        bound=DIVERGENCE_FACTOR * typical + np.abs(starts),
+        y=None if shared_y is not None else runs.y[block],
+        sqrt_w=None if runs.sqrt_weights is None or shared_w is not None else runs.sqrt_weights[block],
+        x=None if shared_x is not None else problem.take_runs(runs.x, block),
+        damping=np.full(len(block), DAMPING_START),
+        damping_growth=np.full(len(block), 2.0),
+        norm_memory=np.zeros((len(block), len(free))),
+        ssr_before=np.full((len(block), 2), np.inf),
+        last_move=np.zeros((len(block), len(free))),
+        reversals=np.zeros(len(block), dtype=np.int64),
+        change=np.full(len(block), np.nan),
+        settled=np.zeros(len(block), dtype=bool),
+        lost_rank=np.zeros(len(block), dtype=bool),
+        trail=np.full((len(block), history, problem.n_params), np.nan) if history else None,
+    )
+
+    def residual(params: np.ndarray, rows: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Weighted residuals and SSR of ``params`` for all working runs or the given rows."""
+        def own(value):
+            return value if value is None or rows is None else value[rows]
+        x = shared_x if state.x is None else (state.x if rows is None else problem.take_runs(state.x, rows))
+        y = shared_y if state.y is None else own(state.y)
+        weights = shared_w if state.sqrt_w is None else own(state.sqrt_w)
+        weighted = y - problem.predict(params, x)
+        if weights is not None:
+            weighted = weighted * weights
+        return weighted, np.einsum("am,am->a", weighted, weighted)
+
+    def finish(mask: np.ndarray, code: Outcome, iteration: int) -> None:
+        if not mask.any():
+            return
+        where = state.index[mask]
+        result.params[where] = state.params[mask]
+        result.ssr[where] = state.ssr[mask]
+        result.iterations[where] = iteration
+        result.outcome[where] = code
+        result.max_rel_change[where] = state.change[mask]
+        if history:
+            order = iteration - history + 1 + np.arange(history)
+            result.history[where] = np.where((order >= 0)[None, :, None],
+                                             state.trail[mask][:, order % history], np.nan)
+        state.keep(~mask)
+
+    def remember(iteration: int) -> None:
+        if history:
+            state.trail[:, iteration % history] = state.params
+
+    with np.errstate(all="ignore"):
+        weighted, ssr = residual(state.params)
+        state.add("weighted", weighted)
+        state.add("ssr", ssr)
+        state.add("blowup", SSR_BLOWUP * np.maximum(ssr, _total_sum_of_squares(runs, block)))
+        remember(0)
+        finish(~np.isfinite(state.ssr), Outcome.MODEL_ERROR, 0)
+        for iteration in range(1, max_iter + 1):
+            if not len(state):
+                return
+            rows = problem.derivative_rows(state.params, shared_x if state.x is None else state.x,
+                                           free, state.floor)
+            weights = shared_w if state.sqrt_w is None else state.sqrt_w
+            if weights is not None:
+                rows = [row * weights for row in rows]
+            system = StepSystem.build(rows, state.weighted, state.norm_memory if method == "lm" else None)
+            finish(system.broken, Outcome.MODEL_ERROR, iteration - 1)
+            system = system.restricted(~system.broken)
+            if method == "gn":
+                finish(system.rank_deficient, Outcome.SINGULAR, iteration - 1)
+                system = system.restricted(~system.rank_deficient)
+            if not len(state):
+                return
+            if method == "gn":
+                _gauss_newton_step(state, system, free, residual, tol)
+            else:
+                _levenberg_marquardt_step(state, system, free, residual, tol)
+            remember(iteration)
+            _classify(state, finish, iteration, tol)
+        finish(np.ones(len(state), dtype=bool), Outcome.STALLED, max_iter)
+
+
+def _total_sum_of_squares(runs: Runs, block: np.ndarray) -> np.ndarray:
+    """(len(block),) weighted sum of squares of the observations: the SSR of a zero model."""
+    obs = runs.y if runs.y.ndim == 1 else runs.y[block]
+    if runs.sqrt_weights is not None:
+        obs = obs * (runs.sqrt_weights if runs.sqrt_weights.ndim == 1 else runs.sqrt_weights[block])
+    total = np.sum(np.square(obs), axis=-1)
+    return np.broadcast_to(np.maximum(total, np.finfo(float).tiny), (len(block),))
+
+
+def _scaled_change(move: np.ndarray, params: np.ndarray, floor: np.ndarray) -> np.ndarray:
+    """(A, c) parameter moves relative to max(|a|, floor)."""
+    return move / np.maximum(np.abs(params), floor)
+
+
+def _gauss_newton_step(state: _Working, system: StepSystem, free: np.ndarray, residual, tol: float) -> None:
+    """a ← a + α·Δ for every working run, whatever it does to the SSR."""
+    move = state.alpha[:, None] * system.gauss_newton()
+    state.params[:, free] += move
+    relative = _scaled_change(move, state.params[:, free], state.floor[:, free])
+    state.change = np.max(np.abs(relative), axis=1)
+    state.settled = state.change < tol
+    _track_reversals(state, relative)
+    state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
+    state.weighted, state.ssr = residual(state.params)
+
+
+def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndarray, residual, tol: float) -> None:
+    """One damped iteration; a rejected trial raises the damping and is retried at once.
+
+    The damping follows the gain ratio (actual over predicted decrease of the SSR): it falls
+    after a good step and grows geometrically, faster each time, after a rejected one. A run
+    is settled when its proposed step is below the tolerance and the undamped Gauss-Newton step
+    is small too (so that heavy damping alone cannot fake convergence), or when its Jacobian
+    has lost rank there.
+    """
+    state.norm_memory = np.maximum(state.norm_memory, system.column_norms)
+    full_step = _scaled_change(state.alpha[:, None] * system.gauss_newton(), state.params[:, free],
+                               state.floor[:, free])
+    near_stationary = (np.max(np.abs(full_step), axis=1) < np.sqrt(tol)) | system.rank_deficient
+    count = len(state)
+    pending = np.ones(count, dtype=bool)
+    change = np.full(count, np.inf)
+    relative_moves = np.zeros((count, len(free)))
+    params, weighted, ssr = state.params.copy(), state.weighted.copy(), state.ssr.copy()
+    for _ in range(DAMPING_RETRIES):
+        rows = np.flatnonzero(pending)
+        if not len(rows):
+            break
+        subsystem = system.restricted(pending)
+        move = state.alpha[rows, None] * subsystem.damped(state.damping[rows])
+        trial = state.params[rows].copy()
+        trial[:, free] += move
+        relative = _scaled_change(move, trial[:, free], state.floor[rows][:, free])
+        change[rows] = np.max(np.abs(relative), axis=1)
+        trial_weighted, trial_ssr = residual(trial, rows)
+        accepted = (trial_ssr < state.ssr[rows]) & np.isfinite(trial).all(axis=1)
+        gain = (state.ssr[rows] - trial_ssr) / subsystem.predicted_reduction(move)
+        took, refused = rows[accepted], rows[~accepted]
+        params[took], weighted[took], ssr[took] = trial[accepted], trial_weighted[accepted], trial_ssr[accepted]
+        relative_moves[took] = relative[accepted]
+        state.damping[took] *= np.maximum(1 / 3, 1 - (2 * np.clip(gain[accepted], 0, 1) - 1) ** 3)
+        state.damping_growth[took] = 2.0
+        state.damping[refused] *= state.damping_growth[refused]
+        state.damping_growth[refused] *= 2.0
+        pending[took] = False
+        pending[rows[change[rows] < tol]] = False
+    state.change = change
+    state.settled = (change < tol) & near_stationary
+    state.lost_rank = system.rank_deficient
+    state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
+    state.params, state.weighted, state.ssr = params, weighted, ssr
+    _track_reversals(state, relative_moves)
+
+
+def _track_reversals(state: _Working, relative: np.ndarray) -> None:
+    """Count consecutive steps that reverse the previous one and come back near the iterate
+    before it (a ≈ a two steps back while a ≠ the last one)."""
+    dot = np.einsum("ac,ac->a", relative, state.last_move)
+    sizes = np.linalg.norm(relative, axis=1) * np.linalg.norm(state.last_move, axis=1)
+    reversing = dot < -0.5 * sizes
+    cycling = np.max(np.abs(relative + state.last_move), axis=1) <= 0.5 * np.max(np.abs(relative), axis=1)
+    state.reversals = np.where(reversing & cycling, state.reversals + 1, 0)
+    state.last_move = relative
+
+
+def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
+    """Give outcomes to the runs whose last step decided their fate.
+
+    Non-finite or runaway parameters, an infinite or blown-up SSR: diverged. A NaN SSR at
+    parameters that have not run away: the model is undefined there (model error). A settled
+    run whose Jacobian lost rank (Levenberg-Marquardt only; Gauss-Newton stops at the loss):
+    singular. Otherwise settled: converged. Reversing steps for OSCILLATION_WINDOW iterations
+    without the SSR falling below its value two steps back: oscillating.
+    """
+    runaway = ~np.isfinite(state.params).all(axis=1) | (np.abs(state.params) > state.bound).any(axis=1)
+    diverged = runaway | (state.ssr > state.blowup) | np.isposinf(state.ssr)
+    undefined = ~diverged & ~np.isfinite(state.ssr)
+    healthy = ~diverged & ~undefined
+    singular = healthy & state.settled & state.lost_rank
+    converged = healthy & state.settled & ~state.lost_rank
+    not_falling = state.ssr >= state.ssr_before[:, 1] * (1 - 1e-9)
+    oscillating = healthy & ~state.settled & not_falling & (state.change > 100 * tol) \
+        & (state.reversals >= OSCILLATION_WINDOW)
+    codes = np.full(len(state), -1)
+    for mask, code in ((diverged, Outcome.DIVERGED), (undefined, Outcome.MODEL_ERROR),
+                       (singular, Outcome.SINGULAR), (converged, Outcome.CONVERGED),
+                       (oscillating, Outcome.OSCILLATING)):
+        codes[mask & (codes < 0)] = code
+    for code in (Outcome.DIVERGED, Outcome.MODEL_ERROR, Outcome.SINGULAR, Outcome.CONVERGED, Outcome.OSCILLATING):
+        finish(codes == code, code, iteration)
+        codes = codes[codes != code]

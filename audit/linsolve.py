@@ -1,0 +1,211 @@
+"""Batched solution of the linearised least-squares step J·Δ ≈ r for many runs at once.
+
+Each run's weighted Jacobian is scaled to unit column norms (this removes the worst of the
+ill-conditioning that comes from parameters of very different sizes). The fast path solves the
+scaled normal equations with a Cholesky factorisation written out over the batch, which for a
+handful of parameters costs a few numpy calls instead of one LAPACK call per run. Normal
+equations square the condition number, so runs whose Cholesky pivots show a scaled condition
+above about 1e4 are solved again from a QR factorisation of [J | r] followed by an SVD of the
+small triangular factor; that SVD also decides whether the Jacobian has lost rank.
+
+One factorisation serves the Gauss-Newton step and any number of damped
+(Levenberg-Marquardt) steps, so a rejected trial step costs no new factorisation.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+#: Smallest relative Cholesky pivot accepted on the fast path (pivot / diagonal of the scaled
+#: Gram matrix). Below it the normal equations would lose more than about 8 digits.
+PIVOT_TOLERANCE = 1e-8
+
+#: A scaled Jacobian whose smallest singular value is below this fraction of its largest has
+#: lost rank. It sits above the error of central differences (about 1e-10 relative), so that
+#: exactly proportional columns are recognised even without an analytic Jacobian.
+RANK_TOLERANCE = 1e-9
+
+
+@dataclass
+class StepSystem:
+    """The factorised step problem for A runs with c free parameters.
+
+    Attributes:
+        column_norms: (A, c) Euclidean norms of the weighted Jacobian's columns.
+        gram: (A, c, c) Gram matrix of the column-scaled Jacobian (unit diagonal).
+        gradient: (A, c) scaled Jacobian transposed times the weighted residual.
+        emphasis: (A, c) relative damping of each scaled parameter (ones: plain Marquardt).
+        broken: (A,) True where the derivatives or residuals are not finite.
+        rank_deficient: (A,) True where the scaled Jacobian has lost rank.
+        careful: (A,) True where the QR/SVD path replaces the normal equations.
+        left, singular_values, right, projected: for the careful runs, the SVD of the
+            triangular factor divided by sqrt(emphasis), and Qᵀr.
+    """
+
+    column_norms: np.ndarray
+    gram: np.ndarray
+    gradient: np.ndarray
+    emphasis: np.ndarray
+    broken: np.ndarray
+    rank_deficient: np.ndarray
+    careful: np.ndarray
+    left: np.ndarray
+    singular_values: np.ndarray
+    right: np.ndarray
+    projected: np.ndarray
+
+    @classmethod
+    def build(cls, rows: list[np.ndarray], residual: np.ndarray, norm_memory: np.ndarray | None = None) -> "StepSystem":
+        """Factorise the step problem.
+
+        Args:
+            rows: c weighted derivative rows (one per free parameter), each broadcastable to
+                (A, m).
+            residual: (A, m) weighted residual y - f.
+            norm_memory: (A, c) largest column norms seen so far in these runs. Damping then
+                uses them instead of the current norms, so that a parameter whose derivative
+                fades (an exponential rate running off) cannot take ever larger steps.
+        """
+        count, width = residual.shape[0], len(rows)
+        raw_gram = np.empty((count, width, width))
+        for i in range(width):
+            for j in range(i, width):
+                raw_gram[:, i, j] = raw_gram[:, j, i] = _row_products(rows[i], rows[j], count)
+        raw_gradient = np.column_stack([_row_products(row, residual, count) for row in rows])
+        norms = np.sqrt(np.einsum("aii->ai", raw_gram))
+        broken = ~(np.isfinite(raw_gram).all(axis=(1, 2)) & np.isfinite(raw_gradient).all(axis=1))
+        dead_column = ~(norms > 0)
+        norms = np.where(dead_column | broken[:, None], 1.0, norms)
+        gram = np.where(broken[:, None, None], np.eye(width), raw_gram / (norms[:, :, None] * norms[:, None, :]))
+        gradient = np.where(broken[:, None], 0.0, raw_gradient / norms)
+        emphasis = np.ones((count, width)) if norm_memory is None else (np.maximum(norm_memory, norms) / norms) ** 2
+        _, pivots = cholesky_batch(gram)
+        careful = (pivots.min(axis=1) < PIVOT_TOLERANCE) & ~dead_column.any(axis=1) & ~broken
+        rank_deficient = dead_column.any(axis=1) & ~broken
+        scaled = np.stack([np.broadcast_to(row, residual.shape)[careful] for row in rows], axis=1)
+        triangle, projected = _triangular_factor(scaled / norms[careful][:, :, None], residual[careful])
+        values = np.linalg.svd(triangle, compute_uv=False) if len(triangle) else np.empty((0, width))
+        rank_deficient[careful] = values[:, -1] <= RANK_TOLERANCE * values[:, 0]
+        left, values, right = _svd(triangle / np.sqrt(emphasis[careful])[:, None, :])
+        return cls(norms, gram, gradient, emphasis, broken, rank_deficient, careful, left, values, right, projected)
+
+    def restricted(self, keep: np.ndarray) -> "StepSystem":
+        """The same system for the runs in ``keep`` only."""
+        careful_keep = keep[self.careful]
+        return StepSystem(
+            self.column_norms[keep], self.gram[keep], self.gradient[keep], self.emphasis[keep],
+            self.broken[keep], self.rank_deficient[keep], self.careful[keep],
+            self.left[careful_keep], self.singular_values[careful_keep],
+            self.right[careful_keep], self.projected[careful_keep],
+        )
+
+    def gauss_newton(self) -> np.ndarray:
+        """(A, c) Gauss-Newton steps in parameter units; NaN rows where rank was lost."""
+        return self.damped(np.zeros(self.gram.shape[0]))
+
+    def damped(self, damping: np.ndarray) -> np.ndarray:
+        """(A, c) steps solving (JsᵀJs + damping·diag(emphasis))·δ = Jsᵀr, in parameter units.
+
+        ``damping`` (A,) is the Levenberg-Marquardt parameter of the scaled problem; 0 gives the
+        Gauss-Newton step. Rows of rank-deficient runs with zero damping are NaN.
+        """
+        count, width = self.gradient.shape
+        steps = np.full((count, width), np.nan)
+        fast = ~self.careful & ~(self.rank_deficient & (damping <= 0))
+        if fast.any():
+            shifted = self.gram[fast] + damping[fast, None, None] * _diagonal(self.emphasis[fast])
+            factor, _ = cholesky_batch(shifted)
+            steps[fast] = cholesky_solve(factor, self.gradient[fast])
+        if self.careful.any():
+            values = self.singular_values
+            mu = damping[self.careful][:, None]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                filtered = values / (values**2 + mu)
+            coefficients = filtered * np.einsum("aji,aj->ai", self.left, self.projected)
+            careful_steps = np.einsum("aij,ai->aj", self.right, coefficients)
+            careful_steps /= np.sqrt(self.emphasis[self.careful])
+            lost = self.rank_deficient[self.careful] & (damping[self.careful] <= 0)
+            careful_steps[lost] = np.nan
+            steps[self.careful] = careful_steps
+        return steps / self.column_norms
+
+    def predicted_reduction(self, move: np.ndarray) -> np.ndarray:
+        """(A,) decrease of the SSR that the linear model predicts for ``move`` (A, c)."""
+        scaled = move * self.column_norms
+        curvature = np.einsum("ai,aij,aj->a", scaled, self.gram, scaled)
+        return 2 * np.einsum("ai,ai->a", scaled, self.gradient) - curvature
+
+
+def _row_products(first: np.ndarray, second: np.ndarray, count: int) -> np.ndarray:
+    """(A,) sums over observations of first·second, for arrays broadcastable to (A, m)."""
+    return np.broadcast_to(np.einsum("...m,...m->...", first, second), (count,))
+
+
+def _diagonal(values: np.ndarray) -> np.ndarray:
+    """(A, c, c) diagonal matrices from (A, c) diagonals."""
+    out = np.zeros(values.shape + values.shape[-1:])
+    np.einsum("aii->ai", out)[...] = values
+    return out
+
+
+def cholesky_batch(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Cholesky factors of A symmetric c×c matrices, vectorised over the batch.
+
+    Never raises: a non-positive pivot is replaced by a tiny one so that the caller can read the
+    problem off the returned pivots.
+
+    Returns:
+        factor (A, c, c) lower triangular, and pivots (A, c) relative to the matrix diagonal.
+    """
+    count, width, _ = matrix.shape
+    factor = np.zeros_like(matrix)
+    pivots = np.empty((count, width))
+    diagonal = np.einsum("aii->ai", matrix)
+    tiny = np.finfo(float).tiny
+    for j in range(width):
+        pivot = diagonal[:, j] - np.einsum("ak,ak->a", factor[:, j, :j], factor[:, j, :j])
+        scale = np.where(diagonal[:, j] > 0, diagonal[:, j], 1.0)
+        pivots[:, j] = pivot / scale
+        root = np.sqrt(np.maximum(pivot, tiny * scale))
+        factor[:, j, j] = root
+        if j + 1 < width:
+            below = matrix[:, j + 1 :, j] - np.einsum("aik,ak->ai", factor[:, j + 1 :, :j], factor[:, j, :j])
+            factor[:, j + 1 :, j] = below / root[:, None]
+    return factor, pivots
+
+
+def cholesky_solve(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve L·Lᵀ·x = rhs for A systems at once; factor (A, c, c), rhs (A, c)."""
+    width = rhs.shape[1]
+    forward = np.empty_like(rhs)
+    for i in range(width):
+        forward[:, i] = (rhs[:, i] - np.einsum("ak,ak->a", factor[:, i, :i], forward[:, :i])) / factor[:, i, i]
+    solution = np.empty_like(rhs)
+    for i in reversed(range(width)):
+        tail = np.einsum("ak,ak->a", factor[:, i + 1 :, i], solution[:, i + 1 :])
+        solution[:, i] = (forward[:, i] - tail) / factor[:, i, i]
+    return solution
+
+
+def _triangular_factor(scaled: np.ndarray, residual: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """R (A, c, c) and Qᵀr (A, c) from the QR factorisation of [Js | r], without forming Q.
+
+    ``scaled`` is (A, c, m), the column-scaled Jacobian transposed. With fewer observations
+    than c + 1 the matrix is padded with zero rows, which leaves R and Qᵀr unchanged.
+    """
+    count, width, rows = scaled.shape
+    if count == 0:
+        return np.empty((0, width, width)), np.empty((0, width))
+    augmented = np.concatenate([np.swapaxes(scaled, 1, 2), residual[:, :, None]], axis=2)
+    if rows < width + 1:
+        augmented = np.concatenate([augmented, np.zeros((count, width + 1 - rows, width + 1))], axis=1)
+    triangle = np.linalg.qr(augmented, mode="r")
+    return triangle[:, :width, :width], triangle[:, :width, width]
+
+
+def _svd(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    if not len(matrix):
+        width = matrix.shape[-1]
+        return np.empty((0, width, width)), np.empty((0, width)), np.empty((0, width, width))
+    return np.linalg.svd(matrix)
