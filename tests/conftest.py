@@ -1,0 +1,68 @@
+"""Shared fixtures: where the NIST StRD reference files are, and small scenario builders."""
+from __future__ import annotations
+
+import os
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from audit.strd import ReferenceProblem, read_reference
+
+PROJECT_ROOT = Path(__file__).resolve().parents[1]
+#: Environment variable that points at a folder of NIST StRD nonlinear regression .dat files.
+NIST_ENVIRONMENT = "FITAUDIT_NIST_DIR"
+#: Where the reference files sit beside the project on the team's machines and in CI.
+NIST_DEFAULT = PROJECT_ROOT.parent / "shared" / "reference" / "nist-strd"
+
+
+def nist_folder() -> Path | None:
+    """The folder of NIST StRD files, or None when it is not on this machine."""
+    folder = Path(os.environ.get(NIST_ENVIRONMENT, NIST_DEFAULT))
+    return folder if folder.is_dir() and any(folder.glob("*.dat")) else None
+
+
+NIST_MISSING = (f"NIST StRD files not found: put the nonlinear regression .dat files from "
+                f"https://www.itl.nist.gov/div898/strd/ in {NIST_DEFAULT} or set {NIST_ENVIRONMENT}")
+
+
+@pytest.fixture
+def nist():
+    """``nist("Misra1a")`` -> the published problem (skips when the files are absent)."""
+    folder = nist_folder()
+    if folder is None:
+        pytest.skip(NIST_MISSING)
+
+    def load(name: str) -> ReferenceProblem:
+        return read_reference(folder / f"{name}.dat")
+
+    return load
+
+
+@pytest.fixture
+def nist_dir() -> Path:
+    """The folder of NIST StRD files (skips when absent)."""
+    folder = nist_folder()
+    if folder is None:
+        pytest.skip(NIST_MISSING)
+    return folder
+
+
+@pytest.fixture
+def write_scenario(tmp_path):
+    """Write a scenario folder from TOML, model and CSV text; returns the folder.
+
+    ``write_scenario(toml, model=..., data=..., name="s")``; texts are dedented.
+    """
+
+    def write(toml: str, model: str | None = None, data: str | None = None, name: str = "scenario") -> Path:
+        folder = tmp_path / name
+        folder.mkdir()
+        (folder / "scenario.toml").write_text(textwrap.dedent(toml))
+        if model is not None:
+            (folder / "model.py").write_text(textwrap.dedent(model))
+        if data is not None:
+            (folder / "data.csv").write_text(textwrap.dedent(data).lstrip())
+        return folder
+
+    return write
