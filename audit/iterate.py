@@ -82,7 +82,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         bound=DIVERGENCE_FACTOR * typical + np.abs(starts),
         y=None if shared_y is not None else runs.y[block],
         sqrt_w=None if runs.sqrt_weights is None or shared_w is not None else runs.sqrt_weights[block],
-        x=None if shared_x is not None else problem.take_runs(runs.x, block),
+        x=None if shared_x is not None else np.moveaxis(problem.take_runs(runs.x, block), problem.runs_axis(), 0),
         damping=np.full(len(block), DAMPING_START),
         damping_growth=np.full(len(block), 2.0),
         norm_memory=np.zeros((len(block), len(free))),
@@ -95,11 +95,17 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         trail=np.full((len(block), history, problem.n_params), np.nan) if history else None,
     )
 
+    def model_x(rows: np.ndarray | None = None) -> np.ndarray:
+        """Predictors in the model's layout; per-run ones are kept runs-first while iterating."""
+        if state.x is None:
+            return shared_x
+        return np.moveaxis(state.x if rows is None else state.x[rows], 0, problem.runs_axis())
+
     def residual(params: np.ndarray, rows: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Weighted residuals and SSR of ``params`` for all working runs or the given rows."""
         def own(value):
             return value if value is None or rows is None else value[rows]
-        x = shared_x if state.x is None else (state.x if rows is None else problem.take_runs(state.x, rows))
+        x = model_x(rows)
         y = shared_y if state.y is None else own(state.y)
         weights = shared_w if state.sqrt_w is None else own(state.sqrt_w)
         weighted = y - problem.predict(params, x)
@@ -136,8 +142,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         for iteration in range(1, max_iter + 1):
             if not len(state):
                 return
-            rows = problem.derivative_rows(state.params, shared_x if state.x is None else state.x,
-                                           free, state.floor)
+            rows = problem.derivative_rows(state.params, model_x(), free, state.floor)
             weights = shared_w if state.sqrt_w is None else state.sqrt_w
             if weights is not None:
                 rows = [row * weights for row in rows]
@@ -179,7 +184,7 @@ def _gauss_newton_step(state: _Working, system: StepSystem, free: np.ndarray, re
     relative = _scaled_change(move, state.params[:, free], state.floor[:, free])
     state.change = np.max(np.abs(relative), axis=1)
     state.settled = state.change < tol
-    _track_reversals(state, relative)
+    _track_reversals(state, move / state.floor[:, free])
     state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
     state.weighted, state.ssr = residual(state.params)
 
@@ -200,7 +205,7 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     count = len(state)
     pending = np.ones(count, dtype=bool)
     change = np.full(count, np.inf)
-    relative_moves = np.zeros((count, len(free)))
+    moves = np.zeros((count, len(free)))
     params, weighted, ssr = state.params.copy(), state.weighted.copy(), state.ssr.copy()
     for _ in range(DAMPING_RETRIES):
         rows = np.flatnonzero(pending)
@@ -217,7 +222,7 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         gain = (state.ssr[rows] - trial_ssr) / subsystem.predicted_reduction(move)
         took, refused = rows[accepted], rows[~accepted]
         params[took], weighted[took], ssr[took] = trial[accepted], trial_weighted[accepted], trial_ssr[accepted]
-        relative_moves[took] = relative[accepted]
+        moves[took] = move[accepted]
         state.damping[took] *= np.maximum(1 / 3, 1 - (2 * np.clip(gain[accepted], 0, 1) - 1) ** 3)
         state.damping_growth[took] = 2.0
         state.damping[refused] *= state.damping_growth[refused]
@@ -229,18 +234,22 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     state.lost_rank = system.rank_deficient
     state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
     state.params, state.weighted, state.ssr = params, weighted, ssr
-    _track_reversals(state, relative_moves)
+    _track_reversals(state, moves / state.floor[:, free])
 
 
-def _track_reversals(state: _Working, relative: np.ndarray) -> None:
+def _track_reversals(state: _Working, move: np.ndarray) -> None:
     """Count consecutive steps that reverse the previous one and come back near the iterate
-    before it (a ≈ a two steps back while a ≠ the last one)."""
-    dot = np.einsum("ac,ac->a", relative, state.last_move)
-    sizes = np.linalg.norm(relative, axis=1) * np.linalg.norm(state.last_move, axis=1)
+    before it (a ≈ a two steps back while a ≠ the last one).
+
+    ``move`` (A, c) is the step in units fixed per run (not relative to the moving iterate),
+    so that steps from different iterates compare.
+    """
+    dot = np.einsum("ac,ac->a", move, state.last_move)
+    sizes = np.linalg.norm(move, axis=1) * np.linalg.norm(state.last_move, axis=1)
     reversing = dot < -0.5 * sizes
-    cycling = np.max(np.abs(relative + state.last_move), axis=1) <= 0.5 * np.max(np.abs(relative), axis=1)
+    cycling = np.max(np.abs(move + state.last_move), axis=1) <= 0.5 * np.max(np.abs(move), axis=1)
     state.reversals = np.where(reversing & cycling, state.reversals + 1, 0)
-    state.last_move = relative
+    state.last_move = move
 
 
 def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
