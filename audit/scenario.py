@@ -141,6 +141,9 @@ def load_scenario(path: Path | str) -> Scenario:
     for name in names:
         if name not in table:
             raise InputError(f"{source} [parameters]: the model takes '{name}' but it is not listed")
+    for name, entry in table.items():
+        if isinstance(entry, dict):
+            reject_unknown(entry, PARAMETER_KEYS, f"{source} [parameters] {name}")
     guessed = _guessed_starts(guess, measurements, model_path, names, table, source)
     parameters = tuple(_parameter(name, table[name], guessed.get(name), source, warnings) for name in names)
 
@@ -223,7 +226,6 @@ def _parameter(name: str, entry, guessed: float | None, source: str, warnings: l
     where = f"{source} [parameters] {name}"
     if not isinstance(entry, dict):
         entry = {"start": entry}
-    reject_unknown(entry, PARAMETER_KEYS, where)
     start = entry.get("start", guessed)
     if isinstance(start, bool) or not isinstance(start, (int, float)) or not math.isfinite(start):
         raise InputError(f"{where} start: must be a finite number, got {start!r}")

@@ -1,6 +1,7 @@
 """Shared fixtures: where the NIST StRD reference files are, and small scenario builders."""
 from __future__ import annotations
 
+import itertools
 import os
 import textwrap
 from pathlib import Path
@@ -52,11 +53,13 @@ def nist_dir() -> Path:
 def write_scenario(tmp_path):
     """Write a scenario folder from TOML, model and CSV text; returns the folder.
 
-    ``write_scenario(toml, model=..., data=..., name="s")``; texts are dedented.
+    ``write_scenario(toml, model=..., data=..., name="s")``; texts are dedented. Every call
+    gets a fresh folder, so one test can write several scenarios.
     """
+    written = itertools.count()
 
     def write(toml: str, model: str | None = None, data: str | None = None, name: str = "scenario") -> Path:
-        folder = tmp_path / name
+        folder = tmp_path / f"{name}-{next(written)}"
         folder.mkdir()
         (folder / "scenario.toml").write_text(textwrap.dedent(toml))
         if model is not None:
