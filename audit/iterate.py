@@ -14,6 +14,7 @@ import numpy as np
 from .linsolve import StepSystem
 from .outcomes import Outcome
 from .problem import FLOOR_FRACTION, Problem
+from .trust_region import INITIAL_RADIUS_FACTOR, Spectrum
 
 #: A parameter past this multiple of its typical magnitude (plus its start) has run away.
 DIVERGENCE_FACTOR = 1e8
@@ -22,10 +23,10 @@ DIVERGENCE_FACTOR = 1e8
 SSR_BLOWUP = 1e12
 #: Consecutive reversing, non-improving steps that make a run oscillating.
 OSCILLATION_WINDOW = 6
-#: Levenberg-Marquardt: starting damping (the scaled Gram matrix has a unit diagonal) and the
-#: number of trial steps per iteration before the iteration is given up.
-DAMPING_START = 1e-3
-DAMPING_RETRIES = 12
+#: Levenberg-Marquardt: trial steps per iteration before the iteration is given up, and the
+#: smallest ratio of actual to predicted decrease of the SSR for a step to be taken.
+TRIAL_STEPS = 12
+ACCEPTED_GAIN = 1e-4
 
 
 @dataclass(frozen=True)
@@ -83,8 +84,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         y=None if shared_y is not None else runs.y[block],
         sqrt_w=None if runs.sqrt_weights is None or shared_w is not None else runs.sqrt_weights[block],
         x=None if shared_x is not None else np.moveaxis(problem.take_runs(runs.x, block), problem.runs_axis(), 0),
-        damping=np.full(len(block), DAMPING_START),
-        damping_growth=np.full(len(block), 2.0),
+        radius=np.full(len(block), np.nan),
         norm_memory=np.zeros((len(block), len(free))),
         ssr_before=np.full((len(block), 2), np.inf),
         last_move=np.zeros((len(block), len(free))),
@@ -190,43 +190,48 @@ def _gauss_newton_step(state: _Working, system: StepSystem, free: np.ndarray, re
 
 
 def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndarray, residual, tol: float) -> None:
-    """One damped iteration; a rejected trial raises the damping and is retried at once.
+    """One trust-region iteration; a rejected trial shrinks the radius and is retried at once.
 
-    The damping follows the gain ratio (actual over predicted decrease of the SSR): it falls
-    after a good step and grows geometrically, faster each time, after a rejected one. A run
-    is settled when its proposed step is below the tolerance and the undamped Gauss-Newton step
-    is small too (so that heavy damping alone cannot fake convergence), or when its Jacobian
-    has lost rank there.
+    The radius follows the gain ratio (actual over predicted decrease of the SSR): halved after
+    a poor step, at least doubled after a good one. A run is settled when its proposed step is
+    below the tolerance and the undamped Gauss-Newton step is small too (so that a shrunken
+    radius alone cannot fake convergence), or when its Jacobian has lost rank there.
     """
     state.norm_memory = np.maximum(state.norm_memory, system.column_norms)
-    full_step = _scaled_change(state.alpha[:, None] * system.gauss_newton(), state.params[:, free],
-                               state.floor[:, free])
+    spectrum = Spectrum.of(system)
+    fresh = np.isnan(state.radius)
+    size = np.linalg.norm(state.norm_memory[fresh] * state.params[fresh][:, free], axis=1)
+    state.radius[fresh] = INITIAL_RADIUS_FACTOR * np.where(size > 0, size, 1.0)
+    full_step = _scaled_change(state.alpha[:, None] * spectrum.step(np.zeros(len(state))),
+                               state.params[:, free], state.floor[:, free])
     near_stationary = (np.max(np.abs(full_step), axis=1) < np.sqrt(tol)) | system.rank_deficient
     count = len(state)
     pending = np.ones(count, dtype=bool)
     change = np.full(count, np.inf)
     moves = np.zeros((count, len(free)))
     params, weighted, ssr = state.params.copy(), state.weighted.copy(), state.ssr.copy()
-    for _ in range(DAMPING_RETRIES):
+    for _ in range(TRIAL_STEPS):
         rows = np.flatnonzero(pending)
         if not len(rows):
             break
-        subsystem = system.restricted(pending)
-        move = state.alpha[rows, None] * subsystem.damped(state.damping[rows])
+        subspectrum = spectrum.restricted(pending)
+        alpha = state.alpha[rows]
+        damping = subspectrum.damping_for(state.radius[rows])
+        move = alpha[:, None] * subspectrum.step(damping)
         trial = state.params[rows].copy()
         trial[:, free] += move
-        relative = _scaled_change(move, trial[:, free], state.floor[rows][:, free])
-        change[rows] = np.max(np.abs(relative), axis=1)
+        change[rows] = np.max(np.abs(_scaled_change(move, trial[:, free], state.floor[rows][:, free])), axis=1)
         trial_weighted, trial_ssr = residual(trial, rows)
-        accepted = (trial_ssr < state.ssr[rows]) & np.isfinite(trial).all(axis=1)
-        gain = (state.ssr[rows] - trial_ssr) / subsystem.predicted_reduction(move)
-        took, refused = rows[accepted], rows[~accepted]
+        gain = (state.ssr[rows] - trial_ssr) / subspectrum.predicted_reduction(damping, alpha)
+        gain = np.where(np.isfinite(gain) & np.isfinite(trial).all(axis=1), gain, -np.inf)
+        accepted = (gain >= ACCEPTED_GAIN) & (trial_ssr < state.ssr[rows])
+        length = alpha * subspectrum.length(damping)
+        poor, good = gain < 0.25, (gain > 0.75) | ((damping == 0) & (gain >= 0.25))
+        state.radius[rows[poor]] = 0.5 * np.minimum(state.radius[rows[poor]], length[poor])
+        state.radius[rows[good]] = np.maximum(state.radius[rows[good]], 2 * length[good])
+        took = rows[accepted]
         params[took], weighted[took], ssr[took] = trial[accepted], trial_weighted[accepted], trial_ssr[accepted]
         moves[took] = move[accepted]
-        state.damping[took] *= np.maximum(1 / 3, 1 - (2 * np.clip(gain[accepted], 0, 1) - 1) ** 3)
-        state.damping_growth[took] = 2.0
-        state.damping[refused] *= state.damping_growth[refused]
-        state.damping_growth[refused] *= 2.0
         pending[took] = False
         pending[rows[change[rows] < tol]] = False
     state.change = change

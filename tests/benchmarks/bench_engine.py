@@ -1,0 +1,145 @@
+"""Fits per second of ``fit_batch`` against a loop of scipy.optimize.least_squares, on one core.
+
+Run:  python tests/benchmarks/bench_engine.py [--starts N]
+
+Three constructed problems (2, 4 and 8 parameters), the same starts, the same analytic
+Jacobian and the same tolerance for both. Only runs where both solvers converge to the same
+point (parameters within 1e-6 relative) count; the rate is counted runs per second of the
+whole batch (every run's time is charged, failed ones included). Prints one JSON object.
+"""
+from __future__ import annotations
+
+import os
+
+for variable in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ[variable] = "1"   # one core: set before numpy loads its BLAS
+
+import argparse  # noqa: E402
+import json  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+from scipy.optimize import least_squares  # noqa: E402
+
+from audit import Outcome, Problem, fit_batch  # noqa: E402
+
+TOLERANCE = 1e-8
+
+
+def saturation() -> tuple[Problem, np.ndarray]:
+    """2 parameters, m = 50: y = b1·(1 − exp(−b2·x))."""
+    x = np.linspace(10, 800, 50)
+    truth = np.array([240.0, 5.5e-4])
+
+    def model(x, b1, b2):
+        return b1 * (1 - np.exp(-b2 * x))
+
+    def jacobian(x, b1, b2):
+        decay = np.exp(-b2 * x)
+        return [1 - decay, b1 * x * decay]
+
+    return _noisy(model, jacobian, x, truth, ("b1", "b2"), 0.1), truth
+
+
+def two_decays() -> tuple[Problem, np.ndarray]:
+    """4 parameters, m = 200: a fast and a slow exponential decay."""
+    x = np.linspace(0, 10, 200)
+    truth = np.array([5.0, 1.3, 2.0, 0.2])
+
+    def model(x, a, b, c, d):
+        return a * np.exp(-b * x) + c * np.exp(-d * x)
+
+    def jacobian(x, a, b, c, d):
+        fast, slow = np.exp(-b * x), np.exp(-d * x)
+        return [fast, -a * x * fast, slow, -c * x * slow]
+
+    return _noisy(model, jacobian, x, truth, ("a", "b", "c", "d"), 0.01), truth
+
+
+def two_peaks() -> tuple[Problem, np.ndarray]:
+    """8 parameters, m = 250: two Gaussian peaks on an exponential baseline."""
+    x = np.linspace(1, 250, 250)
+    truth = np.array([98.0, 0.0105, 100.0, 67.0, 23.0, 72.0, 178.0, 18.5])
+
+    def model(x, b1, b2, b3, b4, b5, b6, b7, b8):
+        return b1 * np.exp(-b2 * x) + b3 * np.exp(-((x - b4) ** 2) / b5**2) + b6 * np.exp(-((x - b7) ** 2) / b8**2)
+
+    def jacobian(x, b1, b2, b3, b4, b5, b6, b7, b8):
+        base = np.exp(-b2 * x)
+        first = np.exp(-((x - b4) ** 2) / b5**2)
+        second = np.exp(-((x - b7) ** 2) / b8**2)
+        return [base, -b1 * x * base,
+                first, 2 * b3 * first * (x - b4) / b5**2, 2 * b3 * first * (x - b4) ** 2 / b5**3,
+                second, 2 * b6 * second * (x - b7) / b8**2, 2 * b6 * second * (x - b7) ** 2 / b8**3]
+
+    return _noisy(model, jacobian, x, truth, tuple(f"b{i}" for i in range(1, 9)), 2.5), truth
+
+
+def _noisy(model, jacobian, x, truth, names, noise) -> Problem:
+    rng = np.random.default_rng(20261202)
+    y = model(x, *truth) + noise * rng.standard_normal(x.size)
+    return Problem(model, x, y, names, jacobian=jacobian)
+
+
+def scipy_loop(problem: Problem, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+    """Reference: one least_squares(method="lm") call per start, same Jacobian and tolerance."""
+    x, y = problem.x, problem.y
+    n = problem.n_params
+    params = np.full(starts.shape, np.nan)
+    success = np.zeros(len(starts), dtype=bool)
+    began = time.perf_counter()
+    for row, start in enumerate(starts):
+        fit = least_squares(lambda a: problem.model(x, *a) - y, start,
+                            jac=lambda a: np.column_stack(problem.jacobian(x, *a)) * np.ones((x.size, n)),
+                            method="lm", xtol=TOLERANCE, ftol=TOLERANCE, gtol=TOLERANCE)
+        params[row], success[row] = fit.x, fit.status > 0
+    return params, success, time.perf_counter() - began
+
+
+def measure(name: str, build, count: int, spread: float, seed: int) -> dict:
+    problem, truth = build()
+    rng = np.random.default_rng(seed)
+    starts = truth * np.exp(rng.uniform(-spread, spread, (count, truth.size)))
+    reference, reference_ok, scipy_seconds = scipy_loop(problem, starts)
+    figures = {"problem": name, "parameters": problem.n_params, "observations": problem.n_obs, "starts": count,
+               "scipy_seconds": round(scipy_seconds, 4)}
+    for method in ("gn", "lm"):
+        fit_batch(problem, starts[:64], method=method, tol=TOLERANCE)          # warm-up
+        began = time.perf_counter()
+        result = fit_batch(problem, starts, method=method, tol=TOLERANCE)
+        seconds = time.perf_counter() - began
+        agree = (result.outcome == Outcome.CONVERGED) & reference_ok & np.all(
+            np.abs(result.params - reference) <= 1e-6 * np.abs(reference), axis=1)
+        counted = int(agree.sum())
+        engine_rate = counted / seconds
+        scipy_rate = counted / scipy_seconds
+        figures[method] = {
+            "agreeing_runs": counted,
+            "engine_seconds": round(seconds, 4),
+            "engine_fits_per_second": round(engine_rate, 1),
+            "scipy_fits_per_second": round(scipy_rate, 1),
+            "speedup": round(engine_rate / scipy_rate, 2) if counted else None,
+            "engine_us_per_start": round(1e6 * seconds / count, 2),
+            "median_iterations": float(np.median(result.iterations)),
+        }
+    return figures
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--starts", type=int, default=3000, help="starts per problem (default 3000)")
+    args = parser.parse_args()
+    report = {
+        "threads": 1,
+        "tolerance": TOLERANCE,
+        "problems": [
+            measure("saturation (2 parameters)", saturation, args.starts, 0.5, 1),
+            measure("two decays (4 parameters)", two_decays, args.starts, 0.4, 2),
+            measure("two peaks on a baseline (8 parameters)", two_peaks, args.starts, 0.08, 3),
+        ],
+    }
+    print(json.dumps(report, indent=2))
+
+
+if __name__ == "__main__":
+    main()
