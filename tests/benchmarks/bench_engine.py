@@ -6,6 +6,10 @@ Three constructed problems (2, 4 and 8 parameters), the same starts, the same an
 Jacobian and the same tolerance for both. Only runs where both solvers converge to the same
 point (parameters within 1e-6 relative) count; the rate is counted runs per second of the
 whole batch (every run's time is charged, failed ones included). Prints one JSON object.
+
+``model_share`` is the fraction of the engine's time spent inside the model and Jacobian
+functions themselves (measured in a second, instrumented pass); ``speedup_bound`` is the speedup
+the engine would reach with zero overhead of its own, scipy's time over that model time.
 """
 from __future__ import annotations
 
@@ -96,6 +100,23 @@ def scipy_loop(problem: Problem, starts: np.ndarray) -> tuple[np.ndarray, np.nda
     return params, success, time.perf_counter() - began
 
 
+def instrumented(problem: Problem) -> tuple[Problem, list[float]]:
+    """The same problem with its model and Jacobian timed; returns it and the time accumulator."""
+    spent = [0.0]
+
+    def timed(function):
+        def call(*args):
+            began = time.perf_counter()
+            try:
+                return function(*args)
+            finally:
+                spent[0] += time.perf_counter() - began
+        return call
+
+    return Problem(timed(problem.model), problem.x, problem.y, problem.names,
+                   jacobian=timed(problem.jacobian)), spent
+
+
 def measure(name: str, build, count: int, spread: float, seed: int) -> dict:
     problem, truth = build()
     rng = np.random.default_rng(seed)
@@ -111,6 +132,10 @@ def measure(name: str, build, count: int, spread: float, seed: int) -> dict:
         agree = (result.outcome == Outcome.CONVERGED) & reference_ok & np.all(
             np.abs(result.params - reference) <= 1e-6 * np.abs(reference), axis=1)
         counted = int(agree.sum())
+        timed_problem, spent = instrumented(problem)
+        began = time.perf_counter()
+        fit_batch(timed_problem, starts, method=method, tol=TOLERANCE)
+        model_share = spent[0] / (time.perf_counter() - began)
         engine_rate = counted / seconds
         scipy_rate = counted / scipy_seconds
         figures[method] = {
@@ -121,6 +146,8 @@ def measure(name: str, build, count: int, spread: float, seed: int) -> dict:
             "speedup": round(engine_rate / scipy_rate, 2) if counted else None,
             "engine_us_per_start": round(1e6 * seconds / count, 2),
             "median_iterations": float(np.median(result.iterations)),
+            "model_share": round(model_share, 3),
+            "speedup_bound": round(scipy_seconds / (model_share * seconds), 1),
         }
     return figures
 
