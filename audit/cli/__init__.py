@@ -9,10 +9,10 @@ import argparse
 import sys
 
 from .. import __version__
-from . import check, fit
+from . import bootstrap, check, fit
 from .common import run_handler
 
-COMMANDS = (check, fit)
+COMMANDS = (check, fit, bootstrap)
 
 DESCRIPTION = """\
 fitaudit audits a nonlinear least-squares fit before you trust, publish or hand it over:

@@ -1,0 +1,166 @@
+"""``fitaudit bootstrap``: bootstrap refits beside the asymptotic standard errors and t intervals."""
+from __future__ import annotations
+
+import argparse
+import json
+import time
+from pathlib import Path
+
+from rich.table import Table
+
+from ..bootstrap import BootstrapResult, bootstrap_scenario, total_refits
+from ..errors import InputError
+from ..figures.bootstrap import write_figures
+from ..parallel import BACKENDS, ParallelPlan
+from ..replicates import FATE_MEANINGS
+from ..resampling import SCHEMES, WILD_MULTIPLIERS
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
+                     open_scenario, out, print_json, progress_bar)
+
+DESCRIPTION = """\
+How uncertain are the fitted parameters, and can the linearised standard errors be trusted?
+
+The fit's asymptotic standard errors and t intervals come from a linearisation at the best fit.
+This command draws many replicate data sets, refits each one from the best fit with the same
+solver and step factor, and shows the spread of the refitted parameters beside them:
+
+  residual  fitted values + residuals drawn with replacement (errors alike at every x)
+  wild      each observation keeps its own residual, times a random sign or Mammen multiplier
+            (errors whose size changes with x)
+  pairs     whole observations drawn with replacement (assumes least; needs many observations)
+
+Per parameter: bootstrap mean, bias, standard error, percentile and BCa intervals, the width
+ratio against the t interval, and a flag with a plain reason where the two disagree (widths,
+asymmetry, a t interval crossing zero for a parameter that stays positive, bias). Refits that
+did not converge, or converged to another solution, are counted by kind and left out of the
+intervals.
+
+Writes OUT/bootstrap.json and OUT/figures/bootstrap-histograms.{png,pdf} and
+OUT/figures/bootstrap-pairs.{png,pdf}. Results depend on the scenario's [bootstrap] seed, never
+on --jobs or the backend.
+
+Exit status: 0 when bootstrap and asymptotic agree and every refit was used, 1 when something
+was flagged or refits were left out, 2 bad input."""
+
+EXAMPLES = """\
+  fitaudit bootstrap scenarios/probe-cooling
+  fitaudit bootstrap scenarios/probe-cooling --method wild --wild-weights mammen --samples 5000
+  fitaudit bootstrap scenarios/probe-cooling --method pairs --jobs 2 -o audit-out --json
+  fitaudit bootstrap scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
+
+DEFAULT_OUT = "fitaudit-output"
+
+
+def register(subparsers) -> None:
+    parser = add_command(subparsers, "bootstrap", "bootstrap intervals beside the asymptotic ones, with failed refits",
+                         DESCRIPTION, EXAMPLES, run)
+    add_scenario_argument(parser)
+    parser.add_argument("--method", choices=SCHEMES,
+                        help="resampling scheme (default: the scenario's [bootstrap] method)")
+    parser.add_argument("--samples", type=int, metavar="N",
+                        help="number of bootstrap replicates (default: the scenario's [bootstrap] samples)")
+    parser.add_argument("--wild-weights", choices=WILD_MULTIPLIERS,
+                        help="multipliers of the wild bootstrap: random signs or Mammen's two-point law "
+                             "(default: the scenario's [bootstrap] wild_weights)")
+    parser.add_argument("--leverage-adjusted", action=argparse.BooleanOptionalAction, default=None,
+                        help="divide residuals by sqrt(1 - leverage) before resampling (residual and wild; "
+                             "default: the scenario's [bootstrap] leverage_adjusted)")
+    parser.add_argument("--step-factor", type=float, metavar="A",
+                        help="step factor of the refits, in (0, 1] (default: the first of the scenario's step_factors)")
+    parser.add_argument("--jobs", type=int, default=-1, metavar="N",
+                        help="worker processes on this machine (default: -1, every core)")
+    parser.add_argument("--backend", choices=BACKENDS, default="processes",
+                        help="processes (this machine) or dask (a running Dask cluster, see --scheduler)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="address of the Dask scheduler, e.g. tcp://10.0.0.5:8786")
+    parser.add_argument("-o", "--out", default=DEFAULT_OUT, metavar="OUT",
+                        help=f"folder for bootstrap.json and the figures (default: {DEFAULT_OUT})")
+    add_json_option(parser)
+
+
+def run(args: argparse.Namespace) -> int:
+    scenario = open_scenario(args)
+    if args.samples is not None and args.samples < 2:
+        raise InputError(f"--samples {args.samples}: must be at least 2")
+    if args.step_factor is not None and not 0 < args.step_factor <= 1:
+        raise InputError(f"--step-factor {args.step_factor}: must lie in (0, 1]")
+    plan = ParallelPlan(jobs=args.jobs, backend=args.backend, scheduler=args.scheduler)
+    samples = scenario.bootstrap.samples if args.samples is None else args.samples
+    started = time.perf_counter()
+    with progress_bar("refits", disable=args.json) as bar:
+        task = bar.add_task("", total=total_refits(scenario.problem, samples), rate="")
+
+        def advance(count: int) -> None:
+            done = bar.tasks[0].completed + count
+            bar.update(task, advance=count, rate=f"{done / max(time.perf_counter() - started, 1e-9):,.0f}/s")
+
+        result = bootstrap_scenario(scenario, method=args.method, samples=samples, step_factor=args.step_factor,
+                                    wild_multipliers=args.wild_weights, leverage_adjusted=args.leverage_adjusted,
+                                    plan=plan, progress=advance)
+    folder = Path(args.out)
+    files = write_outputs(result, folder)
+    if args.json:
+        print_json({**result.to_dict(), "files": [str(path) for path in files]})
+    else:
+        show(result, files)
+    return EXIT_OK if not result.flags and result.replicates.failure_share == 0 else EXIT_FINDING
+
+
+def write_outputs(result: BootstrapResult, folder: Path) -> list[Path]:
+    """Write ``bootstrap.json`` and the figures; return the paths written.
+
+    Raises:
+        InputError: when the folder cannot be written.
+    """
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        path = folder / "bootstrap.json"
+        path.write_text(json.dumps(result.to_dict(), indent=1, allow_nan=False) + "\n")
+        return [path, *write_figures(result, folder / "figures")]
+    except OSError as error:
+        raise InputError(f"-o {folder}: cannot write the results there: {error.strerror}") from None
+
+
+def show(result: BootstrapResult, files: list[Path]) -> None:
+    level = f"{result.confidence:.0%}"
+    weights = f", {result.wild_multipliers} multipliers" if result.wild_multipliers else ""
+    adjusted = ", leverage-adjusted" if result.leverage_adjusted else ""
+    table = Table(title=f"{result.method} bootstrap{weights}{adjusted}: {result.used} of {result.samples} refits "
+                        f"used, step factor {result.refit.step_factor:g}, {level} intervals", title_justify="left")
+    for heading in ("parameter", "estimate", "std. error (t)", "std. error (boot)", "bias",
+                    "t interval", "percentile", "BCa", "width ratio"):
+        table.add_column(heading, justify="left" if heading == "parameter" else "right")
+    asymptotic = result.asymptotic
+    for j, name in enumerate(result.names):
+        table.add_row(name, number(result.best[j], 8), number(asymptotic.std_errors[j], 4),
+                      number(result.std_error[j], 4), number(result.bias[j], 3),
+                      _interval(asymptotic.lower[j], asymptotic.upper[j]),
+                      _interval(result.percentile_lower[j], result.percentile_upper[j]),
+                      _interval(result.bca.lower[j], result.bca.upper[j]),
+                      number(result.comparison.width_ratio[j], 3))
+    out.print(table)
+    fates = Table(title="how the refits ended", title_justify="left")
+    for heading in ("kind", "bootstrap", "share", "leave-one-out", "meaning"):
+        fates.add_column(heading, justify="left" if heading in ("kind", "meaning") else "right")
+    shares, jackknife = result.replicates.shares(), result.jackknife.counts()
+    reasons = result.replicates.other_reasons()
+    for label, count in result.replicates.counts().items():
+        if count or jackknife[label]:
+            meaning = FATE_MEANINGS[label]
+            if label == "other":
+                meaning += f" ({reasons['worse_than_start']} worse, {reasons['far_away']} far away)"
+            fates.add_row(label.replace("_", " "), str(count), f"{shares[label]:.1%}", str(jackknife[label]), meaning)
+    out.print(fates)
+    if result.flags:
+        out.print("[bold]where bootstrap and linearisation disagree:[/]")
+        for flag in result.flags:
+            out.print(f"  {flag.parameter} ({flag.kind}): {flag.reason}", soft_wrap=True)
+    else:
+        out.print("bootstrap and linearised intervals agree for every parameter")
+    for note in result.notes:
+        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
+    out.print("wrote " + ", ".join(str(path) for path in files), soft_wrap=True)
+
+
+def _interval(lower: float, upper: float) -> str:
+    return f"[{number(lower, 6)}, {number(upper, 6)}]"
