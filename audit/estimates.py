@@ -104,16 +104,17 @@ def estimate(problem: Problem, params: np.ndarray, confidence: float = 0.95) -> 
     dof = m - n
     if dof <= 0:
         raise InputError(f"{m} observations leave no degrees of freedom for {n} parameters")
-    residual = problem.y - problem.predict(params[None, :])[0]
-    if problem.sqrt_weights is not None:
-        residual = residual * problem.sqrt_weights
-    ssr = float(residual @ residual)
-    derivatives = problem.derivatives(params[None, :])[0]
-    inverse, condition = inverse_information(derivatives, problem.sqrt_weights)
-    variance = ssr / dof
-    covariance = variance * inverse
-    std_errors = np.sqrt(np.diag(covariance))
-    with np.errstate(invalid="ignore", divide="ignore"):
+    # Points far from convergence (a diverged run) may overflow; they give inf/NaN, not warnings.
+    with np.errstate(all="ignore"):
+        residual = problem.y - problem.predict(params[None, :])[0]
+        if problem.sqrt_weights is not None:
+            residual = residual * problem.sqrt_weights
+        ssr = float(residual @ residual)
+        derivatives = problem.derivatives(params[None, :])[0]
+        inverse, condition = inverse_information(derivatives, problem.sqrt_weights)
+        variance = ssr / dof
+        covariance = variance * inverse
+        std_errors = np.sqrt(np.diag(covariance))
         correlation = covariance / np.outer(std_errors, std_errors)
     t_quantile = float(stats.t.ppf(0.5 + confidence / 2, dof))
     return Estimates(

@@ -27,6 +27,9 @@ OSCILLATION_WINDOW = 6
 #: smallest ratio of actual to predicted decrease of the SSR for a step to be taken.
 TRIAL_STEPS = 12
 ACCEPTED_GAIN = 1e-4
+#: Rounding noise of a weighted SSR, as a multiple of ‖r‖·‖y‖: each residual y − f loses
+#: about eps·|y| to cancellation, so the SSR is uncertain by about 2·eps·Σ|r||y| ≤ 2·eps·‖r‖‖y‖.
+ROUNDING_NOISE = 4 * np.finfo(float).eps
 
 
 @dataclass(frozen=True)
@@ -136,7 +139,9 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         weighted, ssr = residual(state.params)
         state.add("weighted", weighted)
         state.add("ssr", ssr)
-        state.add("blowup", SSR_BLOWUP * np.maximum(ssr, _total_sum_of_squares(runs, block)))
+        total = _total_sum_of_squares(runs, block)
+        state.add("blowup", SSR_BLOWUP * np.maximum(ssr, total))
+        state.add("data_norm", np.sqrt(total))
         remember(0)
         finish(~np.isfinite(state.ssr), Outcome.MODEL_ERROR, 0)
         for iteration in range(1, max_iter + 1):
@@ -193,9 +198,11 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     """One trust-region iteration; a rejected trial shrinks the radius and is retried at once.
 
     The radius follows the gain ratio (actual over predicted decrease of the SSR): halved after
-    a poor step, at least doubled after a good one. A run is settled when its proposed step is
-    below the tolerance and the undamped Gauss-Newton step is small too (so that a shrunken
-    radius alone cannot fake convergence), or when its Jacobian has lost rank there.
+    a poor step, at least doubled after a good one. A run is settled when the undamped
+    Gauss-Newton step from where it stands is below the tolerance (it is stationary); or when
+    every trial step down to one below the tolerance was refused and the Gauss-Newton step is
+    small too (rounding, not the model, refuses further progress: a shrunken radius alone
+    cannot fake convergence); or when its Jacobian has lost rank and its steps have died out.
     """
     state.norm_memory = np.maximum(state.norm_memory, system.column_norms)
     spectrum = Spectrum.of(system)
@@ -204,9 +211,11 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     state.radius[fresh] = INITIAL_RADIUS_FACTOR * np.where(size > 0, size, 1.0)
     full_step = _scaled_change(state.alpha[:, None] * spectrum.step(np.zeros(len(state))),
                                state.params[:, free], state.floor[:, free])
-    near_stationary = (np.max(np.abs(full_step), axis=1) < np.sqrt(tol)) | system.rank_deficient
+    full_change = np.max(np.abs(full_step), axis=1)
+    stationary = full_change < tol
     count = len(state)
-    pending = np.ones(count, dtype=bool)
+    pending = ~stationary
+    moved = np.zeros(count, dtype=bool)
     change = np.full(count, np.inf)
     moves = np.zeros((count, len(free)))
     params, weighted, ssr = state.params.copy(), state.weighted.copy(), state.ssr.copy()
@@ -222,20 +231,29 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         trial[:, free] += move
         change[rows] = np.max(np.abs(_scaled_change(move, trial[:, free], state.floor[rows][:, free])), axis=1)
         trial_weighted, trial_ssr = residual(trial, rows)
-        gain = (state.ssr[rows] - trial_ssr) / subspectrum.predicted_reduction(damping, alpha)
+        predicted = subspectrum.predicted_reduction(damping, alpha)
+        gain = (state.ssr[rows] - trial_ssr) / predicted
         gain = np.where(np.isfinite(gain) & np.isfinite(trial).all(axis=1), gain, -np.inf)
-        accepted = (gain >= ACCEPTED_GAIN) & (trial_ssr < state.ssr[rows])
+        # Below the rounding noise of the SSR the gain ratio is noise too: a step whose
+        # predicted decrease is that small is taken unless it clearly raises the SSR.
+        noise = ROUNDING_NOISE * np.sqrt(state.ssr[rows]) * state.data_norm[rows]
+        unresolved = (predicted <= noise) & (trial_ssr <= state.ssr[rows] + noise)
+        accepted = ((gain >= ACCEPTED_GAIN) & (trial_ssr < state.ssr[rows])) | unresolved
         length = alpha * subspectrum.length(damping)
-        poor, good = gain < 0.25, (gain > 0.75) | ((damping == 0) & (gain >= 0.25))
+        poor = (gain < 0.25) & ~unresolved
+        good = (gain > 0.75) | ((damping == 0) & (gain >= 0.25))
         state.radius[rows[poor]] = 0.5 * np.minimum(state.radius[rows[poor]], length[poor])
         state.radius[rows[good]] = np.maximum(state.radius[rows[good]], 2 * length[good])
         took = rows[accepted]
         params[took], weighted[took], ssr[took] = trial[accepted], trial_weighted[accepted], trial_ssr[accepted]
         moves[took] = move[accepted]
+        moved[took] = True
         pending[took] = False
         pending[rows[change[rows] < tol]] = False
+    change[stationary] = full_change[stationary]
     state.change = change
-    state.settled = (change < tol) & near_stationary
+    refused_near_stationary = (change < tol) & ~moved & (full_change < np.sqrt(tol))
+    state.settled = stationary | refused_near_stationary | ((change < tol) & system.rank_deficient)
     state.lost_rank = system.rank_deficient
     state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
     state.params, state.weighted, state.ssr = params, weighted, ssr

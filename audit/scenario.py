@@ -17,6 +17,7 @@ import numpy as np
 
 from .datafile import read_measurements
 from .errors import InputError
+from .formula import check_formula, compile_formula, formula_problem_parts
 from .modelfile import describe_model_error, load_model_module
 from .problem import Problem
 from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, IdentifiabilitySettings,
@@ -132,7 +133,8 @@ def load_scenario(path: Path | str) -> Scenario:
                                      _text(data_table, "delimiter", source, "data"))
     warnings = list(measurements.warnings)
 
-    model, jacobian, guess, names, model_path, formula = _model(model_table, folder, source, x_names)
+    model, jacobian, guess, names, model_path, formula = _model(model_table, folder, source, x_names,
+                                                                tuple(config["parameters"]))
     table = config["parameters"]
     for name in table:
         if name not in names:
@@ -188,18 +190,32 @@ def _columns(value, source: str) -> tuple[str, ...]:
     raise InputError(f"{source} [data] x: must be a column name or a list of column names")
 
 
-def _model(table: dict, folder: Path, source: str, x_names: tuple[str, ...]):
-    """(model, jacobian, guess, names, model_path, formula) from the [model] table."""
+def _model(table: dict, folder: Path, source: str, x_names: tuple[str, ...], parameter_names: tuple[str, ...]):
+    """(model, jacobian, guess, names, model_path, formula) from the [model] table.
+
+    A formula model (``expression``) takes its parameters in the order of the [parameters]
+    table and names each predictor by its [data] x column; its derivatives are exact. A Python
+    model may state its formula as text (``formula``), checked here and compiled later by the
+    derivative check.
+    """
     expression = _text(table, "expression", source, "model")
     file = _text(table, "file", source, "model")
     if (expression is None) == (file is None):
         raise InputError(f"{source} [model]: give either 'file' (a Python module) or 'expression' (a formula)")
     if expression is not None:
-        raise InputError(f"{source} [model] expression: formula models are not available yet; use a model file")
+        extra = [key for key in ("function", "jacobian", "guess", "formula") if key in table]
+        if extra:
+            raise InputError(f"{source} [model] {extra[0]}: only for a model file; with 'expression' the "
+                             "formula is the model and its derivatives are derived exactly")
+        compiled = compile_formula(expression, parameter_names, x_names, where=f"{source} [model] expression")
+        parts = formula_problem_parts(compiled)
+        return parts["model"], parts["jacobian"], None, compiled.parameter_names, None, parts["formula"]
     module = load_model_module(folder / file, _text(table, "function", source, "model") or "model",
                                _text(table, "jacobian", source, "model"), _text(table, "guess", source, "model"))
-    return (module.model, module.jacobian, module.guess, module.parameter_names, module.path,
-            _text(table, "formula", source, "model"))
+    formula = _text(table, "formula", source, "model")
+    if formula is not None:
+        check_formula(formula, module.parameter_names, x_names, where=f"{source} [model] formula")
+    return module.model, module.jacobian, module.guess, module.parameter_names, module.path, formula
 
 
 def _guessed_starts(guess, measurements, model_path, names, table, source) -> dict[str, float]:

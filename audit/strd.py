@@ -136,6 +136,65 @@ def _model_lines(lines: list[str]) -> list[str]:
     return [line for line in body[after_count + 1:] if line]
 
 
+@dataclass(frozen=True)
+class NistFormula:
+    """A StRD model rewritten in fitaudit's formula syntax.
+
+    Attributes:
+        response: the left-hand side, e.g. "y", or "log(y)" when the response is transformed.
+        model: the right-hand side without the error term, e.g. "b1*(1-exp(-b2*x))", with
+            constants defined on their own lines written in as their decimals.
+        constants: name -> decimal text of each definition line (e.g. pi).
+    """
+
+    response: str
+    model: str
+    constants: dict[str, str]
+
+    @property
+    def transformed(self) -> bool:
+        """True when the response is fitted through a function, e.g. log(y)."""
+        return self.response.strip() != self.response_name
+
+    @property
+    def response_name(self) -> str:
+        return _NAME.findall(self.response)[-1]
+
+
+_DEFINITION = re.compile(r"^\s*([A-Za-z_]\w*)\s*=\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*$")
+_ERROR_TERM = re.compile(r"\+\s*e\s*$")
+_NAME = re.compile(r"[A-Za-z_]\w*")
+
+
+def nist_formula(model_lines: tuple[str, ...] | list[str]) -> NistFormula:
+    """Rewrite the model lines of a StRD file (NIST notation) as a formula.
+
+    NIST writes function arguments in square brackets (``exp[-b1*x]``), powers as ``**``,
+    may define a constant on a line of its own (``pi = 3.14159...``), continues long models on
+    further lines (starting with ``+`` or after a trailing ``/``), ends with the error term
+    ``+ e``, and may fit a function of the response (``log[y] = ...``).
+
+    Raises:
+        InputError: when no line of the form ``response = model`` is found.
+    """
+    constants: dict[str, str] = {}
+    body: list[str] = []
+    for line in model_lines:
+        definition = _DEFINITION.match(line)
+        if definition and not body:
+            constants[definition.group(1)] = definition.group(2)
+        else:
+            body.append(line.strip())
+    text = " ".join(body).replace("[", "(").replace("]", ")")
+    response, equals, model = text.partition("=")
+    if not equals or not response.strip() or not model.strip():
+        raise InputError(f"model lines {list(model_lines)}: expected 'response = model + e'")
+    model = _ERROR_TERM.sub("", model).strip()
+    for name, value in constants.items():
+        model = re.sub(rf"\b{name}\b", f"({value})", model)
+    return NistFormula(response=" ".join(response.split()), model=" ".join(model.split()), constants=constants)
+
+
 def log_relative_error(estimate: np.ndarray | float, certified: np.ndarray | float) -> np.ndarray:
     """LRE = −log10(|estimate − certified| / |certified|), clipped to [0, 11].
 

@@ -9,10 +9,10 @@ import argparse
 import sys
 
 from .. import __version__
-from . import bootstrap, check, fit
+from . import bootstrap, check, fit, strd
 from .common import run_handler
 
-COMMANDS = (check, fit, bootstrap)
+COMMANDS = (check, fit, strd, bootstrap)
 
 DESCRIPTION = """\
 fitaudit audits a nonlinear least-squares fit before you trust, publish or hand it over:

@@ -37,7 +37,8 @@ def summary(scenario: Scenario) -> dict:
         "data": {"file": scenario.data_path, "observations": problem.n_obs, "x": list(scenario.x_names),
                  "y": scenario.y_name, "sigma": scenario.sigma_name},
         "model": {"file": scenario.model_path, "formula": problem.formula,
-                  "hand_derived_jacobian": problem.has_jacobian},
+                  "jacobian": ("exact (formula)" if scenario.model_path is None
+                               else "hand-derived" if problem.has_jacobian else "central differences")},
         "parameters": [{"name": p.name, "start": p.start, "range": [p.lower, p.upper] if p.has_range else None,
                         "scale": p.axis} for p in scenario.parameters],
         "solver": scenario.solver.__dict__,
@@ -58,7 +59,12 @@ def run(args: argparse.Namespace) -> int:
     out.print(f"data: {scenario.data_path.name}: {problem.n_obs} observations of '{scenario.y_name}' "
               f"against {predictors}{weights}")
     source = scenario.model_path.name if scenario.model_path else "formula"
-    jacobian = "hand-derived Jacobian" if problem.has_jacobian else "numeric (central-difference) Jacobian"
+    if scenario.model_path is None:
+        jacobian = "exact Jacobian derived from the formula"
+    elif problem.has_jacobian:
+        jacobian = "hand-derived Jacobian"
+    else:
+        jacobian = "numeric (central-difference) Jacobian"
     out.print(f"model: {source}, {problem.n_params} parameters, {jacobian}")
     if problem.formula:
         out.print(f"formula: {problem.formula}")
