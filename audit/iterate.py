@@ -200,9 +200,11 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     The radius follows the gain ratio (actual over predicted decrease of the SSR): halved after
     a poor step, at least doubled after a good one. A run is settled when the undamped
     Gauss-Newton step from where it stands is below the tolerance (it is stationary); or when
-    every trial step down to one below the tolerance was refused and the Gauss-Newton step is
-    small too (rounding, not the model, refuses further progress: a shrunken radius alone
-    cannot fake convergence); or when its Jacobian has lost rank and its steps have died out.
+    that step is small (below the square root of the tolerance) and the SSR can no longer tell
+    better from worse: every trial down to one below the tolerance was refused, or the step just
+    taken was within the SSR's rounding noise (a shrunken radius alone cannot fake convergence,
+    and noisy derivatives cannot keep a run jittering at its noise floor); or when its
+    Jacobian has lost rank and its steps have died out.
     """
     state.norm_memory = np.maximum(state.norm_memory, system.column_norms)
     spectrum = Spectrum.of(system)
@@ -216,6 +218,7 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     count = len(state)
     pending = ~stationary
     moved = np.zeros(count, dtype=bool)
+    at_noise_floor = np.zeros(count, dtype=bool)
     change = np.full(count, np.inf)
     moves = np.zeros((count, len(free)))
     params, weighted, ssr = state.params.copy(), state.weighted.copy(), state.ssr.copy()
@@ -248,12 +251,15 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         params[took], weighted[took], ssr[took] = trial[accepted], trial_weighted[accepted], trial_ssr[accepted]
         moves[took] = move[accepted]
         moved[took] = True
+        at_noise_floor[rows[unresolved & accepted]] = True
         pending[took] = False
         pending[rows[change[rows] < tol]] = False
     change[stationary] = full_change[stationary]
     state.change = change
-    refused_near_stationary = (change < tol) & ~moved & (full_change < np.sqrt(tol))
-    state.settled = stationary | refused_near_stationary | ((change < tol) & system.rank_deficient)
+    near_stationary = full_change < np.sqrt(tol)
+    refused = (change < tol) & ~moved
+    state.settled = (stationary | (near_stationary & (refused | at_noise_floor))
+                     | ((change < tol) & system.rank_deficient))
     state.lost_rank = system.rank_deficient
     state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
     state.params, state.weighted, state.ssr = params, weighted, ssr

@@ -52,11 +52,21 @@ class BootstrapSettings:
 
 @dataclass(frozen=True)
 class IdentifiabilitySettings:
-    """[identifiability]: profile-likelihood grid and the thresholds for flags."""
+    """[identifiability]: profile-likelihood grid and the thresholds for flags.
+
+    profile_points: grid points per parameter profile (the estimate and both sides);
+    profile_reach: how far each side reaches, in asymptotic half-widths (clipped to the range);
+    collinearity_limit: subsets whose collinearity index reaches it count as not identifiable;
+    random_points: points drawn in the ranges for the structural (rank) check, with ``seed``.
+    """
 
     profile_points: int = 41
     confidence: float = 0.95
     strong_correlation: float = 0.95
+    profile_reach: float = 4.0
+    collinearity_limit: float = 15.0
+    random_points: int = 8
+    seed: int = DEFAULT_SEED
 
 
 @dataclass(frozen=True)
@@ -159,6 +169,9 @@ LIMITS: dict[tuple[str, str], tuple[Any, str]] = {
     ("identifiability", "profile_points"): (lambda v: v >= 5, "must be at least 5"),
     ("identifiability", "confidence"): (lambda v: 0 < v < 1, "must lie between 0 and 1"),
     ("identifiability", "strong_correlation"): (lambda v: 0 < v < 1, "must lie between 0 and 1"),
+    ("identifiability", "profile_reach"): (lambda v: v > 1, "must exceed 1 (asymptotic half-widths)"),
+    ("identifiability", "collinearity_limit"): (lambda v: v > 1, "must exceed 1"),
+    ("identifiability", "random_points"): (lambda v: v >= 1, "must be at least 1"),
     ("derivatives", "points"): (lambda v: v >= 1, "must be at least 1"),
 }
 

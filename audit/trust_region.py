@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .linsolve import StepSystem
+from .linsolve import RANK_TOLERANCE, StepSystem
 
 #: The step length may miss the radius by this fraction.
 RADIUS_SLACK = 0.1
@@ -68,22 +68,24 @@ class Spectrum:
     def restricted(self, keep: np.ndarray) -> "Spectrum":
         return Spectrum(self.values[keep], self.vectors[keep], self.weights[keep], self.to_parameters[keep])
 
-    def length(self, damping: np.ndarray) -> np.ndarray:
-        """(A,) ‖u(μ)‖; infinite where μ = 0 meets a zero eigenvalue with weight."""
+    def _coefficients(self, damping: np.ndarray) -> np.ndarray:
+        """(A, c) w / (λ + μ). Undamped, directions the data do not determine (λ below the
+        rank tolerance) get no step: the minimum-norm Gauss-Newton step."""
+        lost = (damping[:, None] <= 0) & (self.values <= RANK_TOLERANCE**2 * self.values[:, -1:])
         with np.errstate(divide="ignore", invalid="ignore"):
-            coefficients = np.where(self.weights == 0, 0.0, self.weights / (self.values + damping[:, None]))
-        return np.sqrt(np.sum(coefficients**2, axis=1))
+            return np.where((self.weights == 0) | lost, 0.0, self.weights / (self.values + damping[:, None]))
+
+    def length(self, damping: np.ndarray) -> np.ndarray:
+        """(A,) ‖u(μ)‖."""
+        return np.sqrt(np.sum(self._coefficients(damping) ** 2, axis=1))
 
     def step(self, damping: np.ndarray) -> np.ndarray:
         """(A, c) damped steps in parameter units."""
-        with np.errstate(divide="ignore", invalid="ignore"):
-            coefficients = np.where(self.weights == 0, 0.0, self.weights / (self.values + damping[:, None]))
-        return np.einsum("aij,aj->ai", self.vectors, coefficients) * self.to_parameters
+        return np.einsum("aij,aj->ai", self.vectors, self._coefficients(damping)) * self.to_parameters
 
     def predicted_reduction(self, damping: np.ndarray, alpha: np.ndarray) -> np.ndarray:
         """(A,) decrease of the SSR the linear model predicts for α·u(μ): 2α·uᵀĝ − α²·uᵀMu."""
-        with np.errstate(divide="ignore", invalid="ignore"):
-            coefficients = np.where(self.weights == 0, 0.0, self.weights / (self.values + damping[:, None]))
+        coefficients = self._coefficients(damping)
         along = np.sum(coefficients * self.weights, axis=1)
         curvature = np.sum(coefficients**2 * self.values, axis=1)
         return 2 * alpha * along - alpha**2 * curvature

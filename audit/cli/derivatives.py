@@ -1,0 +1,204 @@
+"""``fitaudit derivatives``: hand-derived partial derivatives against numeric and exact ones."""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+from pathlib import Path
+
+from rich.table import Table
+
+from ..derivatives import SOURCES, DerivativeAudit, audit_derivatives
+from ..errors import InputError
+from ..figures.derivatives import write_figures
+from ..outcomes import Outcome
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
+                     open_scenario, out, print_json, progress_bar)
+
+DESCRIPTION = """\
+Are the hand-derived partial derivatives (the model file's jacobian function) right?
+
+They are compared, observation by observation, with high-accuracy numeric derivatives
+(numdifftools: central differences over shrinking steps with Richardson extrapolation and an
+error estimate) and, when [model] formula states the model's formula, with the exact symbolic
+ones. The check points are the best fit, the scenario's start and N points drawn inside the
+parameter ranges (seeded by [derivatives] seed). A column is called wrong only where the
+difference is far beyond the numeric error bound and above a millionth of the column's size.
+
+For each parameter the table shows the largest relative error (largest |difference| divided by
+the column's largest |derivative| at that point), where it occurs, the verdict and a diagnosis
+in plain words: sign error, constant factor, a factor that changes with the parameters, two
+columns swapped or copied, right only in part of the range (a branch or an absolute value),
+or a missing term (with the correlation of the error with x and with each true column).
+Points where the model is not smooth, so that no numeric derivative can be trusted, are named.
+
+When a column is wrong, the fit from the start is run with the numeric and with the
+hand-derived Jacobian, showing the difference in iterations, end point and standard errors.
+
+Without a hand-derived Jacobian there is nothing to check; the command then shows how many
+digits the fit's own central differences carry.
+
+Exit status: 0 all derivatives agree (or, without a hand-derived Jacobian, the central
+differences are adequate), 1 a mistake was found (or the central differences are poor),
+2 bad input."""
+
+EXAMPLES = """\
+  fitaudit derivatives scenarios/probe-cooling
+  fitaudit derivatives scenarios/probe-cooling --points 50 -o audit-out
+  fitaudit derivatives my-scenario --json > derivatives.json"""
+
+
+def register(subparsers) -> None:
+    parser = add_command(subparsers, "derivatives", "check hand-derived partial derivatives against numeric ones",
+                         DESCRIPTION, EXAMPLES, run)
+    add_scenario_argument(parser)
+    parser.add_argument("--points", type=int, metavar="N",
+                        help="check points drawn inside the parameter ranges, besides the best fit and the start "
+                             "(default: the scenario's [derivatives] points)")
+    parser.add_argument("-o", "--out", metavar="OUT",
+                        help="also write OUT/derivatives.json and figures into OUT/figures")
+    add_json_option(parser)
+
+
+def run(args: argparse.Namespace) -> int:
+    scenario = open_scenario(args)
+    if args.points is not None and args.points < 0:
+        raise InputError(f"--points {args.points}: must be 0 or more")
+    stages = ["best fit", "numeric derivatives", "comparison", "consequences"]
+    with progress_bar("derivative audit", disable=args.json) as bar:
+        task = bar.add_task("", total=len(stages), rate="")
+
+        def advance(stage: str) -> None:
+            bar.update(task, completed=stages.index(stage), rate=stage)
+
+        result = audit_derivatives(scenario, args.points, progress=advance)
+        bar.update(task, completed=len(stages), rate="done")
+    files = write_outputs(result, Path(args.out)) if args.out else []
+    if args.json:
+        print_json({**result.to_dict(), "files": [str(path) for path in files]})
+    else:
+        show(result, files)
+    return EXIT_FINDING if result.has_finding else EXIT_OK
+
+
+def write_outputs(result: DerivativeAudit, folder: Path) -> list[Path]:
+    """Write ``derivatives.json`` and the figures; return the paths written.
+
+    Raises:
+        InputError: when the folder cannot be written.
+    """
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        path = folder / "derivatives.json"
+        path.write_text(json.dumps(result.to_dict(), indent=1, allow_nan=False) + "\n")
+        return [path, *write_figures(result, folder / "figures")]
+    except OSError as error:
+        raise InputError(f"-o {folder}: cannot write the results there: {error.strerror}") from None
+
+
+def show(result: DerivativeAudit, files: list[Path]) -> None:
+    reference = "the exact (symbolic) derivatives of the stated formula" if result.reference == "exact" \
+        else "numdifftools (Richardson-extrapolated central differences)"
+    out.print(f"Jacobian under audit: {SOURCES[result.jacobian_source]}")
+    if result.hand is None:
+        _show_central(result, reference)
+    else:
+        _show_columns(result, reference)
+    unreliable = {point for diagnosis in result.diagnoses for point in diagnosis.unreliable_points}
+    if unreliable:
+        kinks = [label for k, label in enumerate(result.labels) if not result.smooth[k].all()]
+        reason = f"; the model is not smooth at {', '.join(kinks)}" if kinks else ""
+        out.print(f"numeric derivative unreliable (left out of the comparison) at {len(unreliable)} point(s){reason}",
+                  soft_wrap=True)
+    for note in (*result.notes, *(f"left out, model not finite: {label}" for label in result.dropped)):
+        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
+    if result.consequences is not None:
+        _show_consequences(result)
+    for path in files:
+        out.print(f"wrote {path}")
+    _conclusion(result)
+
+
+def _show_columns(result: DerivativeAudit, reference: str) -> None:
+    exact = result.reference == "exact"
+    whose = "hand-derived"
+    if result.jacobian_source == "formula":
+        out.print("[yellow]There is no hand-derived Jacobian, so nothing hand-made to check.[/] The fit uses the "
+                  "formula's derivatives from computer algebra; as a cross-check they are compared here with "
+                  "numdifftools.", soft_wrap=True)
+        whose = "the formula's"
+    table = Table(title=f"{whose} partial derivatives at {len(result.labels)} points, judged against {reference}",
+                  title_justify="left")
+    headings = ["parameter", "verdict", "max rel. error", "where", *(["vs numdifftools"] if exact else []),
+                "central diff. error", "diagnosis"]
+    for heading in headings:
+        table.add_column(heading, justify="left" if heading in ("parameter", "verdict", "where", "diagnosis")
+                         else "right")
+    for j, name in enumerate(result.names):
+        verdict = result.verdict[j]
+        colour = {"agrees": "green", "wrong": "bold red"}.get(verdict, "yellow")
+        k = int(result.worst_point[j])
+        where = f"{result.labels[k]}, obs. {int(result.worst_observation[j]) + 1}" \
+            if k >= 0 and result.max_relative_error[j] > 0 else "—"
+        row = [name, f"[{colour}]{verdict}[/]", number(result.max_relative_error[j], 2), where]
+        if exact:
+            row.append(number(result.max_relative_error_numeric[j], 2))
+        row += [_central(result, j), result.diagnoses[j].headline]
+        table.add_row(*row)
+    out.print(table)
+    for j in result.wrong_columns:
+        out.print(f"[bold]{result.names[j]}[/]: {result.diagnoses[j].summary}", soft_wrap=True)
+
+
+def _show_central(result: DerivativeAudit, reference: str) -> None:
+    out.print("[yellow]There is no hand-derived Jacobian, so there is nothing to check.[/] The fit differentiates "
+              "the model by central differences; here is how many digits they carry.", soft_wrap=True)
+    table = Table(title=f"the fit's central differences at {len(result.labels)} points, against {reference}",
+                  title_justify="left")
+    for heading in ("parameter", "max rel. error", "digits", "points judged"):
+        table.add_column(heading, justify="left" if heading == "parameter" else "right")
+    for j, name in enumerate(result.names):
+        error = result.max_central_error[j]
+        digits = "—" if not error == error else "all" if error == 0 else f"{max(0.0, -math.log10(error)):.1f}"
+        judged = int(result.usable[:, j].any(axis=1).sum())
+        table.add_row(name, _central(result, j), digits, f"{judged} of {len(result.labels)}")
+    out.print(table)
+
+
+def _central(result: DerivativeAudit, j: int) -> str:
+    text = number(result.max_central_error[j], 2)
+    return f"[red]{text}[/]" if result.central_poor[j] else text
+
+
+def _show_consequences(result: DerivativeAudit) -> None:
+    found = result.consequences
+    table = Table(title=f"what the wrong derivatives do to the fit from the start ({found.method}, step factor "
+                        f"{found.step_factor:g})", title_justify="left")
+    for heading in ("Jacobian", "outcome", "iterations", "SSR", *(f"{name} (std. error)" for name in found.names)):
+        table.add_column(heading, justify="left" if heading in ("Jacobian", "outcome") else "right")
+    for r, jacobian in enumerate(found.jacobians):
+        outcome = Outcome(int(found.outcome[r]))
+        colour = "green" if outcome == Outcome.CONVERGED else "red"
+        cells = [f"{number(found.params[r, j], 7)} ({number(found.std_errors[r, j], 3)})"
+                 for j in range(len(found.names))]
+        table.add_row(jacobian, f"[{colour}]{outcome.label}[/]", str(int(found.iterations[r])),
+                      number(found.ssr[r], 7), *cells)
+    out.print(table)
+
+
+def _conclusion(result: DerivativeAudit) -> None:
+    if result.jacobian_source == "none":
+        if result.has_finding:
+            poor = [name for name, bad in zip(result.names, result.central_poor) if bad]
+            out.print(f"[red]the fit's central differences lose more than 3 digits for {', '.join(poor)}[/]")
+        else:
+            out.print("[green]no hand-derived Jacobian to check; the fit's central differences are adequate[/]")
+        return
+    wrong = result.wrong_columns
+    if wrong:
+        out.print(f"[bold red]{len(wrong)} of {len(result.names)} partial derivative(s) wrong: "
+                  f"{', '.join(result.names[j] for j in wrong)}[/]")
+    elif "unchecked" in result.verdict:
+        out.print("[yellow]no mistake found, but some columns could not be judged[/]")
+    else:
+        out.print("[green]every partial derivative agrees with the reference[/]")

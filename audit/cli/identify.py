@@ -1,0 +1,156 @@
+"""``fitaudit identify``: can the data determine the parameters? Correlations, weak combinations, profiles."""
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+import numpy as np
+from rich.table import Table
+
+from ..errors import InputError
+from ..figures.identifiability import write_figures
+from ..identifiability import Identifiability, identify_scenario
+from ..parallel import ParallelPlan
+from ..profiles import SIDE_STATUS
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
+                     open_scenario, out, print_json, progress_bar)
+
+DESCRIPTION = """\
+Fit the scenario from its starting values, then ask whether the data can determine each
+parameter:
+
+  singular values   of the weighted Jacobian, raw and with unit-length columns, and the
+                    condition numbers; the weakest directions in words, e.g. "tau and dT
+                    trade off against each other: tau - 0.98*dT is barely constrained"
+                    (each parameter counted in units of its conditional standard error)
+  correlations      of the estimates, with the strongly correlated pairs listed
+                    ([identifiability] strong_correlation, default 0.95)
+  collinearity      index of every parameter subset up to six (Brun, Reichert & Kuensch,
+                    2001); subsets above [identifiability] collinearity_limit (default 15)
+                    are not identifiable, and the largest identifiable subsets are named
+  rank check        a zero singular value at the fit and at random points in the ranges
+                    means no data of this design can separate the parameters (structural)
+  profiles          each parameter fixed on a grid reaching well past its asymptotic interval
+                    (clipped to its range), the others refitted; the profile interval is where
+                    the SSR stays below SSR_min*(1 + F(1, m-n)/(m-n)). A side that never
+                    rises above that level is OPEN: the data do not bound the parameter there.
+
+Exit status: 0 every parameter identifiable, 1 something flagged (structural
+non-identifiability, an open profile interval, or a profile that beat the best fit), 2 bad input."""
+
+EXAMPLES = """\
+  fitaudit identify scenarios/probe-cooling
+  fitaudit identify scenarios/probe-cooling --points 61 -o audit-out
+  fitaudit identify scenarios/probe-cooling --jobs 2 --json > identifiability.json"""
+
+
+def register(subparsers) -> None:
+    parser = add_command(subparsers, "identify", "check that the data determine every parameter",
+                         DESCRIPTION, EXAMPLES, run)
+    add_scenario_argument(parser)
+    parser.add_argument("--points", type=int, metavar="N",
+                        help="grid points of each parameter's profile, the estimate included "
+                             "(default: [identifiability] profile_points, 41)")
+    parser.add_argument("--jobs", type=int, default=1, metavar="N",
+                        help="worker processes for the profiles, -1 for all cores (default 1: one batch per "
+                             "step for all parameters, best for cheap models)")
+    parser.add_argument("-o", "--out", type=Path, metavar="OUT",
+                        help="folder for identifiability.json and the figures (figures/*.png, *.pdf)")
+    add_json_option(parser)
+
+
+def run(args: argparse.Namespace) -> int:
+    scenario = open_scenario(args)
+    plan = ParallelPlan(jobs=args.jobs)
+    with progress_bar("profiles", disable=args.json) as progress:
+        task = progress.add_task("profiles", total=None, rate="")
+
+        def on_step(done: int, total: int) -> None:
+            progress.update(task, completed=done, total=total)
+
+        result = identify_scenario(scenario, points=args.points, plan=plan, on_step=on_step)
+    written = _write(result, args.out) if args.out else []
+    if args.json:
+        print_json(result.to_dict())
+    else:
+        show(result)
+        for path in written:
+            out.print(f"wrote {path}")
+    return EXIT_FINDING if result.flagged else EXIT_OK
+
+
+def _write(result: Identifiability, folder: Path) -> list[Path]:
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        path = folder / "identifiability.json"
+        path.write_text(json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n")
+        return [path, *write_figures(result, folder / "figures")]
+    except OSError as error:
+        raise InputError(f"-o {folder}: cannot write there: {error.strerror}") from None
+
+
+def show(result: Identifiability) -> None:
+    estimates, profiles = result.estimates, result.profiles
+    out.print(f"best fit: {result.fit_outcome}, SSR {number(estimates.ssr, 8)}, {estimates.dof} degrees of freedom")
+    spectrum = Table(title="singular values of the weighted Jacobian", title_justify="left")
+    for heading in ("direction", "raw", "unit columns", "condition index"):
+        spectrum.add_column(heading, justify="right")
+    for k, (raw, scaled, index) in enumerate(zip(result.singular_raw, result.singular_scaled,
+                                                 result.condition_index), start=1):
+        spectrum.add_row(str(k), number(raw, 4), number(scaled, 4), number(index, 4))
+    out.print(spectrum)
+    out.print(f"condition number: {number(result.condition_scaled, 4)} with unit-length columns, "
+              f"{number(result.condition_raw, 4)} raw")
+    out.print("[bold]weakest directions[/] (parameters in units of their conditional standard errors):")
+    for text in result.weak_text:
+        out.print(f"  {text}")
+    pairs = [f"{result.names[i]}–{result.names[j]} {r:+.4f}"
+             for (i, j), r in zip(result.strong_pairs, result.strong_correlation)]
+    out.print(f"strongly correlated pairs (|r| ≥ {result.strong_limit:g}): {', '.join(pairs) or 'none'}")
+    _show_collinearity(result)
+    rank = result.rank
+    usable = np.isfinite(rank.ratio)
+    spread = (f"{number(np.min(rank.ratio[usable]), 3)} to {number(np.max(rank.ratio[usable]), 3)}"
+              if usable.any() else "not computable")
+    out.print(f"rank check (smallest/largest unit-column singular value, zero below {rank.tolerance:g}): "
+              f"{number(rank.ratio_at_fit, 3)} at the fit, {spread} at {len(rank.ratio)} random points")
+    level = f"{profiles.confidence:.0%}"
+    table = Table(title=f"{level} intervals: asymptotic (t) and profile likelihood", title_justify="left")
+    for heading in ("parameter", "estimate", "asymptotic lower", "asymptotic upper", "profile lower",
+                    "profile upper"):
+        table.add_column(heading, justify="left" if heading == "parameter" else "right")
+    for j, name in enumerate(result.names):
+        table.add_row(name, number(result.params[j], 8), number(estimates.lower[j], 6),
+                      number(estimates.upper[j], 6), _end(profiles.lower[j], profiles.lower_status[j]),
+                      _end(profiles.upper[j], profiles.upper_status[j]))
+    out.print(table)
+    for status in sorted({*profiles.lower_status, *profiles.upper_status} - {"closed"}):
+        out.print(f"  {status.replace('_', ' ')}: {SIDE_STATUS[status]}")
+    for finding in result.findings:
+        colour = "red" if finding["level"] == "flag" else "yellow"
+        out.print(f"[{colour}]{finding['level']}[/]: {finding['text']}", soft_wrap=True)
+    if not result.flagged:
+        out.print("[green]ok[/]: every parameter is bounded by its profile; no structural non-identifiability")
+
+
+def _show_collinearity(result: Identifiability) -> None:
+    collinearity = result.collinearity
+    if not len(collinearity.index):
+        return
+    above = int(np.sum(collinearity.index >= collinearity.limit))
+    worst = int(np.argmax(np.nan_to_num(collinearity.index, posinf=np.finfo(float).max)))
+    subsets = ", ".join("{" + ", ".join(result.names[j] for j in subset) + "}"
+                        for subset in collinearity.largest_identifiable[:5]) or "none"
+    sizes = "2" if collinearity.max_size == 2 else f"2 to {collinearity.max_size}"
+    out.print(f"collinearity indices (subsets of size {sizes}, limit {collinearity.limit:g}): "
+              f"{above} of {len(collinearity.index)} at or above the limit; largest "
+              f"{{{', '.join(collinearity.subset_names(worst))}}} {number(collinearity.index[worst], 4)}")
+    out.print(f"largest identifiable subsets: {subsets}")
+
+
+def _end(value: float, status: str) -> str:
+    if status == "closed":
+        return number(value, 6)
+    return "open (bound)" if status == "open_at_bound" else "open (grid)" if status == "open_at_grid_end" \
+        else "open (fits failed)"

@@ -1,0 +1,157 @@
+"""Figures of the derivative audit, drawn from a ``DerivativeAudit`` only.
+
+- ``derivatives_columns``: one panel pair per parameter at the point where that column is worst:
+  the true derivative (line) with the hand-derived values (open circles) over the observations,
+  and below it their difference as a share of the column's size, inside the grey tolerance band.
+  A wrong column shows at a glance: circles off the line, differences outside the band.
+- ``derivatives_points``: every check point × every parameter, shaded by the relative error
+  (digits lost), marked ✗ with the share of observations that disagree, hatched where the
+  numeric reference is unreliable. A column wrong at some points only shows as a broken stripe,
+  one wrong at some observations only as shares below 100 %. Without a hand-derived Jacobian it
+  shows the engine's central differences instead.
+"""
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+from matplotlib.colors import LinearSegmentedColormap
+
+from ..derivatives import CENTRAL_POOR, REL_FLOOR, DerivativeAudit
+from .style import EMPIRICAL, OUTCOME_STYLE, plt, save
+
+HAND_COLOUR = OUTCOME_STYLE["oscillating"][0]
+WRONG_COLOUR = OUTCOME_STYLE["diverged"][0]
+BAND_COLOUR = "#d9d9d9"
+#: Light (no error) to dark (all digits lost): reads the same in greyscale.
+ERROR_MAP = LinearSegmentedColormap.from_list("fitaudit_error", ["#f4f1ea", "#9fb7c9", EMPIRICAL, "#0b1a2b"])
+#: Relative errors are drawn on log10 scale between these exponents.
+SMALLEST, LARGEST = -16, 0
+
+
+def write_figures(result: DerivativeAudit, folder: Path) -> list[Path]:
+    """Write the audit's figures (PNG and PDF) into ``folder``; returns the paths written."""
+    folder = Path(folder)
+    paths = []
+    if result.hand is not None:
+        paths += _columns(result, folder)
+    paths += _points(result, folder)
+    return paths
+
+
+def _columns(result: DerivativeAudit, folder: Path) -> list[Path]:
+    n = len(result.names)
+    across = min(n, 3)
+    down = math.ceil(n / across)
+    figure = plt.figure(figsize=(4.3 * across, 3.9 * down), constrained_layout=True)
+    cells = figure.add_gridspec(down, across)
+    for j in range(n):
+        pair = cells[j // across, j % across].subgridspec(2, 1, height_ratios=(2.2, 1), hspace=0.05)
+        upper = figure.add_subplot(pair[0])
+        lower = figure.add_subplot(pair[1], sharex=upper)
+        _column_panel(result, j, upper, lower)
+    reference = "exact (from the formula)" if result.reference == "exact" else "numeric (numdifftools)"
+    figure.suptitle(f"Hand-derived partial derivatives against the {reference} ones, at each column's worst point",
+                    fontsize=11)
+    return save(figure, folder, "derivatives_columns")
+
+
+def _column_panel(result: DerivativeAudit, j: int, upper, lower) -> None:
+    name = result.names[j]
+    k = int(result.worst_point[j])
+    wrong = result.verdict[j] == "wrong"
+    title_colour = WRONG_COLOUR if wrong else "black"
+    where = f" (at {result.labels[k]})" if k >= 0 else ""
+    upper.set_title(f"∂f/∂{name}: {result.diagnoses[j].headline}{where}", color=title_colour, fontsize=10,
+                    fontweight="bold" if wrong else "normal")
+    if k < 0:
+        upper.text(0.5, 0.5, "nothing could be judged", ha="center", va="center", transform=upper.transAxes)
+        return
+    x, label = _abscissa(result)
+    order = np.argsort(x, kind="stable")
+    usable = result.usable[k, j][order]
+    true = result.true[k, j][order]
+    hand = result.hand[k, j][order]
+    xs = x[order]
+    upper.plot(xs[usable], true[usable], color=EMPIRICAL, linewidth=1.6, label="true", zorder=2)
+    upper.plot(xs, hand, linestyle="none", marker="o", markersize=4.5, markerfacecolor="none",
+               markeredgecolor=HAND_COLOUR, label="hand-derived", zorder=3)
+    if (~usable).any():
+        upper.plot(xs[~usable], true[~usable], linestyle="none", marker="x", color="#555555",
+                   label="numeric unreliable")
+    upper.legend(fontsize=7, loc="best", frameon=False)
+    upper.tick_params(labelbottom=False, labelsize=8)
+    upper.ticklabel_format(axis="y", useOffset=False)
+    upper.set_ylabel("derivative", fontsize=8)
+    scale = result.column_scale[k, j] or 1.0
+    shown = np.concatenate([true[usable], hand[np.isfinite(hand)]])
+    low, high = (shown.min(), shown.max()) if shown.size else (0.0, 0.0)
+    if high - low < 0.2 * scale:
+        # A constant column: rounding noise must not fill the panel.
+        middle = (high + low) / 2
+        low, high = middle - 0.1 * scale, middle + 0.1 * scale
+    margin = 0.08 * (high - low)
+    upper.set_ylim(low - margin, high + margin)
+
+    band = result.tolerance[k, j][order] / scale
+    difference = (hand - true) / scale
+    lower.fill_between(xs, -band, band, color=BAND_COLOUR, step="mid", linewidth=0, label="tolerance")
+    lower.axhline(0.0, color="#888888", linewidth=0.6)
+    flagged = result.disagrees[k, j][order]
+    lower.plot(xs[~flagged], difference[~flagged], linestyle="none", marker="o", markersize=2.5, color=EMPIRICAL)
+    lower.plot(xs[flagged], difference[flagged], linestyle="none", marker="s", markersize=3, color=WRONG_COLOUR)
+    largest = np.nanmax(np.abs(np.where(np.isfinite(difference), difference, np.nan)), initial=0.0)
+    limit = max(largest, np.nanmax(band, initial=0.0)) * 1.15 or 1e-6
+    lower.set_ylim(-limit, limit)
+    lower.set_ylabel("difference /\ncolumn size", fontsize=8)
+    lower.set_xlabel(label, fontsize=8)
+    lower.tick_params(labelsize=8)
+    lower.ticklabel_format(axis="y", style="sci", scilimits=(-2, 3))
+
+
+def _abscissa(result: DerivativeAudit) -> tuple[np.ndarray, str]:
+    if len(result.predictor_names) == 1:
+        return result.x_rows[0], result.predictor_names[0]
+    return np.arange(result.x_rows.shape[1], dtype=float), "observation"
+
+
+def _points(result: DerivativeAudit, folder: Path) -> list[Path]:
+    hand = result.hand is not None
+    errors = result.relative_error if hand else result.central_error
+    count, n = errors.shape
+    figure, axes = plt.subplots(figsize=(max(5.6, 1.6 + 1.05 * n), 1.5 + 0.28 * count), constrained_layout=True)
+    with np.errstate(divide="ignore"):
+        exponent = np.clip(np.log10(np.where(errors > 0, errors, 10.0 ** SMALLEST)), SMALLEST, LARGEST)
+    image = axes.imshow(np.ma.masked_invalid(exponent), cmap=ERROR_MAP, vmin=SMALLEST, vmax=LARGEST, aspect="auto")
+    unreliable = (~result.usable).any(axis=2)
+    wrong = result.wrong_share > 0
+    for k in range(count):
+        for j in range(n):
+            if unreliable[k, j]:
+                axes.add_patch(plt.Rectangle((j - 0.5, k - 0.5), 1, 1, fill=False, hatch="////",
+                                             edgecolor="#777777", linewidth=0))
+            if wrong[k, j]:
+                light = not exponent[k, j] > -7
+                axes.text(j, k, f"✗ {result.wrong_share[k, j]:.0%}", ha="center", va="center", fontsize=7.5,
+                          fontweight="bold", color=WRONG_COLOUR if light else "white")
+            elif np.isfinite(exponent[k, j]):
+                shade = "white" if exponent[k, j] > -7 else "#333333"
+                text = f"≤{SMALLEST}" if exponent[k, j] <= SMALLEST else f"{exponent[k, j]:.0f}"
+                axes.text(j, k, text.replace("-", "−"), ha="center", va="center", fontsize=7, color=shade)
+    axes.set_xticks(range(n), [f"∂f/∂{name}" for name in result.names], fontsize=8, rotation=30, ha="right")
+    axes.set_yticks(range(count), result.labels, fontsize=8)
+    against = "exact" if result.reference == "exact" else "numeric"
+    if hand:
+        title = (f"log10 relative error, hand-derived vs {against}\n✗ share of observations wrong · hatched: "
+                 f"reference unreliable\nred line: {REL_FLOOR:.0e}, below which no difference counts")
+        line = REL_FLOOR
+    else:
+        title = (f"log10 relative error, the fit's central differences vs {against}\nhatched: reference "
+                 f"unreliable\nred line: {CENTRAL_POOR:.0e}, above which they are too poor")
+        line = CENTRAL_POOR
+    axes.set_title(title, fontsize=9)
+    colourbar = figure.colorbar(image, ax=axes, shrink=0.8)
+    colourbar.set_label("log10(largest |difference| / column size)", fontsize=8)
+    colourbar.ax.axhline(math.log10(line), color=WRONG_COLOUR, linewidth=2)
+    return save(figure, folder, "derivatives_points")
