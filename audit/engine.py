@@ -102,7 +102,9 @@ def fit_batch(
         y: observations, (m,) or per run (B, m); default the problem's.
         x: predictors, the problem's shape or per run ((B, m), or (k, B, m)); default the problem's.
         weights: 1/sigma², (m,) or per run (B, m), positive; default the problem's.
-        free: (n,) bool, the parameters to fit; the others stay at their start values.
+        free: (n,) or per run (B, n) bool, the parameters to fit; the others stay at their
+            start values. Per-run masks let runs that hold different parameters fixed share one
+            call (profile likelihood).
         method: "gn" (step-factor Gauss-Newton) or "lm" (Levenberg-Marquardt).
         tol: convergence when max_j |α·Δ_j| / max(|a_j|, floor_j) < tol.
         max_iter: iteration limit; a run that reaches it without another outcome is stalled.
@@ -166,9 +168,11 @@ def _validated_runs(problem, starts, step_factor, y, x, weights, free, method, t
             raise InputError(f"weights must be positive with shape ({m},) or ({count}, {m})")
         sqrt_weights = np.sqrt(weights)
     free = np.ones(n, dtype=bool) if free is None else np.asarray(free, dtype=bool)
-    if free.shape != (n,) or not free.any():
-        raise InputError(f"free must be {n} booleans with at least one True")
+    if free.shape not in ((n,), (count, n)) or not np.all(free.any(axis=-1)):
+        raise InputError(f"free must be {n} booleans, or ({count}, {n}) for each run, with at least one True per run")
+    columns = np.flatnonzero(free.any(axis=0) if free.ndim == 2 else free)
+    held = None if free.ndim == 1 or free[:, columns].all() else ~free[:, columns]
     typical = problem.typical if problem.typical is not None else np.where(starts != 0, np.abs(starts), 1.0)
     typical = np.broadcast_to(typical, starts.shape)
     return Runs(starts=starts, step_factor=alpha, y=y, x=x, sqrt_weights=sqrt_weights,
-                free=np.flatnonzero(free), typical=typical)
+                free=columns, held=held, typical=typical)

@@ -34,7 +34,11 @@ ROUNDING_NOISE = 4 * np.finfo(float).eps
 
 @dataclass(frozen=True)
 class Runs:
-    """Validated inputs of one ``fit_batch`` call (see its docstring for shapes)."""
+    """Validated inputs of one ``fit_batch`` call (see its docstring for shapes).
+
+    ``free`` holds the indices of the parameters fitted in any run (c of them); ``held`` is
+    None when every run fits all of those, else (B, c) True where a run holds one fixed.
+    """
 
     starts: np.ndarray
     step_factor: np.ndarray
@@ -42,6 +46,7 @@ class Runs:
     x: np.ndarray
     sqrt_weights: np.ndarray | None
     free: np.ndarray
+    held: np.ndarray | None
     typical: np.ndarray
 
 
@@ -96,6 +101,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         settled=np.zeros(len(block), dtype=bool),
         lost_rank=np.zeros(len(block), dtype=bool),
         trail=np.full((len(block), history, problem.n_params), np.nan) if history else None,
+        held=None if runs.held is None else runs.held[block],
     )
 
     def model_x(rows: np.ndarray | None = None) -> np.ndarray:
@@ -151,7 +157,8 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
             weights = shared_w if state.sqrt_w is None else state.sqrt_w
             if weights is not None:
                 rows = [row * weights for row in rows]
-            system = StepSystem.build(rows, state.weighted, state.norm_memory if method == "lm" else None)
+            system = StepSystem.build(rows, state.weighted, state.norm_memory if method == "lm" else None,
+                                      held=state.held)
             finish(system.broken, Outcome.MODEL_ERROR, iteration - 1)
             system = system.restricted(~system.broken)
             if method == "gn":

@@ -41,6 +41,8 @@ class StepSystem:
         careful: (A,) True where the QR/SVD path replaces the normal equations.
         left, singular_values, right, projected: for the careful runs, the SVD of the
             triangular factor divided by sqrt(emphasis), and Qᵀr.
+        free_columns: (A, c) 1.0 where the run fits the parameter, 0.0 where it holds it fixed;
+            steps are multiplied by it so that rounding cannot move a held parameter.
     """
 
     column_norms: np.ndarray
@@ -54,9 +56,11 @@ class StepSystem:
     singular_values: np.ndarray
     right: np.ndarray
     projected: np.ndarray
+    free_columns: np.ndarray
 
     @classmethod
-    def build(cls, rows: list[np.ndarray], residual: np.ndarray, norm_memory: np.ndarray | None = None) -> "StepSystem":
+    def build(cls, rows: list[np.ndarray], residual: np.ndarray, norm_memory: np.ndarray | None = None,
+              held: np.ndarray | None = None) -> "StepSystem":
         """Factorise the step problem.
 
         Args:
@@ -66,6 +70,9 @@ class StepSystem:
             norm_memory: (A, c) largest column norms seen so far in these runs. Damping then
                 uses them instead of the current norms, so that a parameter whose derivative
                 fades (an exponential rate running off) cannot take ever larger steps.
+            held: (A, c) True where a run holds that parameter fixed: its column is replaced by
+                a unit column of its own, decoupled from the others and with no gradient, so
+                its step is exactly zero.
         """
         count, width = residual.shape[0], len(rows)
         raw_gram = np.empty((count, width, width))
@@ -73,6 +80,11 @@ class StepSystem:
             for j in range(i, width):
                 raw_gram[:, i, j] = raw_gram[:, j, i] = _row_products(rows[i], rows[j], count)
         raw_gradient = np.column_stack([_row_products(row, residual, count) for row in rows])
+        if held is not None:
+            kept = ~held
+            raw_gram = np.where(kept[:, :, None] & kept[:, None, :], raw_gram, 0.0)
+            np.einsum("aii->ai", raw_gram)[held] = 1.0
+            raw_gradient = np.where(held, 0.0, raw_gradient)
         norms = np.sqrt(np.einsum("aii->ai", raw_gram))
         broken = ~(np.isfinite(raw_gram).all(axis=(1, 2)) & np.isfinite(raw_gradient).all(axis=1))
         dead_column = ~(norms > 0)
@@ -84,11 +96,20 @@ class StepSystem:
         careful = (pivots.min(axis=1) < PIVOT_TOLERANCE) & ~dead_column.any(axis=1) & ~broken
         rank_deficient = dead_column.any(axis=1) & ~broken
         scaled = np.stack([np.broadcast_to(row, residual.shape)[careful] for row in rows], axis=1)
-        triangle, projected = _triangular_factor(scaled / norms[careful][:, :, None], residual[careful])
+        scaled = scaled / norms[careful][:, :, None]
+        if held is not None:
+            # Held columns become unit columns on rows of their own (appended observations with
+            # zero residual), which is what the Gram matrix above says.
+            scaled = np.concatenate([np.where(held[careful][:, :, None], 0.0, scaled),
+                                     _diagonal(held[careful].astype(float))], axis=2)
+            residual = np.concatenate([residual, np.zeros((count, width))], axis=1)
+        triangle, projected = _triangular_factor(scaled, residual[careful])
         values = np.linalg.svd(triangle, compute_uv=False) if len(triangle) else np.empty((0, width))
         rank_deficient[careful] = values[:, -1] <= RANK_TOLERANCE * values[:, 0]
         left, values, right = _svd(triangle / np.sqrt(emphasis[careful])[:, None, :])
-        return cls(norms, gram, gradient, emphasis, broken, rank_deficient, careful, left, values, right, projected)
+        free_columns = np.ones((count, width)) if held is None else (~held).astype(float)
+        return cls(norms, gram, gradient, emphasis, broken, rank_deficient, careful, left, values, right, projected,
+                   free_columns)
 
     def restricted(self, keep: np.ndarray) -> "StepSystem":
         """The same system for the runs in ``keep`` only."""
@@ -97,7 +118,7 @@ class StepSystem:
             self.column_norms[keep], self.gram[keep], self.gradient[keep], self.emphasis[keep],
             self.broken[keep], self.rank_deficient[keep], self.careful[keep],
             self.left[careful_keep], self.singular_values[careful_keep],
-            self.right[careful_keep], self.projected[careful_keep],
+            self.right[careful_keep], self.projected[careful_keep], self.free_columns[keep],
         )
 
     def gauss_newton(self) -> np.ndarray:
@@ -128,7 +149,7 @@ class StepSystem:
             lost = self.rank_deficient[self.careful] & (damping[self.careful] <= 0)
             careful_steps[lost] = np.nan
             steps[self.careful] = careful_steps
-        return steps / self.column_norms
+        return steps / self.column_norms * self.free_columns
 
     def predicted_reduction(self, move: np.ndarray) -> np.ndarray:
         """(A,) decrease of the SSR that the linear model predicts for ``move`` (A, c)."""

@@ -11,8 +11,8 @@ do not bound the parameter there (practically non-identifiable on that side).
 
 The walk: every side of every profile starts at the best fit and moves outward one grid point
 per step; each new point is warm-started from the refit of its neighbour. One step is one
-batch across all parameters and both directions (``audit.pinned`` lets runs that fix different
-parameters share a ``fit_batch`` call); runs that Gauss-Newton does not settle are retried
+batch across all parameters and both directions (each run holds its own parameter fixed through
+``fit_batch``'s per-run mask of free parameters); runs that Gauss-Newton does not settle are retried
 with Levenberg-Marquardt in a second call. The crossing of the threshold is interpolated in
 the signed root of SSR − SSR_min, which is linear in θ for a linear model, so the interval is
 exact there and second-order accurate elsewhere.
@@ -29,7 +29,6 @@ from .engine import fit_batch
 from .jsonable import jsonable
 from .outcomes import Outcome
 from .parallel import ParallelPlan, map_chunks
-from .pinned import pinned_problem
 from .problem import Problem
 
 #: A side stops walking once its SSR has risen this many times as far above SSR_min as the
@@ -171,8 +170,8 @@ def plan_grid(estimate: np.ndarray, half_width: np.ndarray, lower_bound: np.ndar
     return ProfileGrid(values=values, clipped=clipped)
 
 
-def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: ProfileGrid, scale: np.ndarray,
-                confidence: float, walk: WalkSettings = WalkSettings(), plan: ParallelPlan | None = None,
+def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: ProfileGrid, confidence: float,
+                walk: WalkSettings = WalkSettings(), plan: ParallelPlan | None = None,
                 on_step=None) -> Profiles:
     """Walk every profile outward from the best fit and find where each crosses the threshold.
 
@@ -180,7 +179,6 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
         problem: the fitted problem, m > n.
         estimate: (n,) best fit; ssr_min its SSR.
         grid: from ``plan_grid``.
-        scale: (n,) positive typical magnitudes (the refits' convergence scale).
         confidence: interval level in (0, 1).
         walk: solver settings of the refits.
         plan: how to spread the parameters over processes (default: this process only, one
@@ -195,7 +193,7 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
     f_quantile = float(stats.f.ppf(confidence, 1, dof))
     threshold = ssr_min * (1 + f_quantile / dof)
     ceiling = ssr_min + CEILING_RISES * (threshold - ssr_min)
-    walker = partial(_walk, problem, estimate, grid.values, scale, walk, ceiling)
+    walker = partial(_walk, problem, estimate, grid.values, walk, ceiling)
     side_ssr = np.full((n, 2, steps), np.nan)
     side_params = np.full((n, 2, steps, n), np.nan)
     side_outcome = np.full((n, 2, steps), NOT_WALKED, dtype=np.int8)
@@ -232,7 +230,7 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
     )
 
 
-def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, scale: np.ndarray, walk: WalkSettings,
+def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, walk: WalkSettings,
           ceiling: float, group: np.ndarray, on_step=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Walk the profiles of the parameters in ``group`` (both sides), one batch per step.
 
@@ -250,9 +248,6 @@ def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, scale: np.
     last_good = np.broadcast_to(estimate, (len(pinned), n)).copy()
     active = np.ones(len(pinned), dtype=bool)
     failures = np.zeros(len(pinned), dtype=np.int64)
-    wrapper = pinning = None
-    if n > 1:
-        wrapper, pinning = pinned_problem(problem, scale)
     for k in range(steps):
         rows = np.flatnonzero(active)
         if not len(rows):
@@ -260,10 +255,10 @@ def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, scale: np.
         value = values[pinned[rows], sides[rows], k]
         start = last_good[rows].copy()
         start[np.arange(len(rows)), pinned[rows]] = value
-        if pinning is None:
+        if n == 1:
             found, found_ssr, codes = start, _ssr(problem, start), np.full(len(rows), Outcome.CONVERGED)
         else:
-            found, found_ssr, codes = _refit(wrapper, pinning, start, pinned[rows], value, walk)
+            found, found_ssr, codes = _refit(problem, start, pinned[rows], walk)
         settled = codes == Outcome.CONVERGED
         ssr[rows[settled], k] = found_ssr[settled]
         params[rows[settled], k] = found[settled]
@@ -280,27 +275,26 @@ def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, scale: np.
     return ssr.reshape(*shape, steps), params.reshape(*shape, steps, n), outcome.reshape(*shape, steps)
 
 
-def _refit(wrapper: Problem, pinning, start: np.ndarray, pinned: np.ndarray, value: np.ndarray,
+def _refit(problem: Problem, start: np.ndarray, pinned: np.ndarray,
            walk: WalkSettings) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Refit the free parameters of every run: Gauss-Newton, then Levenberg-Marquardt where it failed.
+    """Refit every run with its own parameter ``pinned`` (B,) held at its start value.
 
-    A Levenberg-Marquardt run that settles on a rank-deficient Jacobian still sits at the
-    smallest SSR along its valley, so it counts as settled for the profile.
+    Gauss-Newton first, then Levenberg-Marquardt where it failed. A Levenberg-Marquardt run that
+    settles on a rank-deficient Jacobian still sits at the smallest SSR along its valley, so it
+    counts as settled for the profile.
     """
-    x = pinning.predictors(pinned, value)
-    slots = pinning.slots(start, pinned)
-    options = dict(x=x, tol=walk.tolerance, max_iter=walk.max_iterations)
-    first = fit_batch(wrapper, slots, walk.step_factor, method="gn", **options)
-    found_slots, ssr, codes = first.params.copy(), first.ssr.copy(), first.outcome.copy()
+    free = np.arange(problem.n_params)[None, :] != pinned[:, None]
+    options = dict(tol=walk.tolerance, max_iter=walk.max_iterations)
+    first = fit_batch(problem, start, walk.step_factor, free=free, method="gn", **options)
+    found, ssr, codes = first.params.copy(), first.ssr.copy(), first.outcome.copy()
     retry = np.flatnonzero(codes != Outcome.CONVERGED)
     if len(retry):
-        options["x"] = x[:, retry]
-        second = fit_batch(wrapper, slots[retry], 1.0, method="lm", **options)
+        second = fit_batch(problem, start[retry], 1.0, free=free[retry], method="lm", **options)
         settled = np.isin(second.outcome, (Outcome.CONVERGED, Outcome.SINGULAR))
         codes[retry] = np.where(settled, Outcome.CONVERGED, second.outcome)
-        found_slots[retry] = second.params
+        found[retry] = second.params
         ssr[retry] = second.ssr
-    return pinning.full(found_slots, pinned, value), ssr, codes
+    return found, ssr, codes
 
 
 def _ssr(problem: Problem, params: np.ndarray) -> np.ndarray:

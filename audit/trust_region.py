@@ -63,7 +63,7 @@ class Spectrum:
             projected = singular * np.einsum("aji,aj->ai", system.left, system.projected)
             weights[system.careful] = np.take_along_axis(projected, order, axis=1)
         values = np.maximum(values, 0.0)
-        return cls(values, vectors, weights, 1.0 / (root * system.column_norms))
+        return cls(values, vectors, weights, system.free_columns / (root * system.column_norms))
 
     def restricted(self, keep: np.ndarray) -> "Spectrum":
         return Spectrum(self.values[keep], self.vectors[keep], self.weights[keep], self.to_parameters[keep])

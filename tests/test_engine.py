@@ -296,6 +296,21 @@ def test_free_mask_holds_parameters_fixed():
     np.testing.assert_allclose(result.params[0], reference, rtol=1e-7)
 
 
+@pytest.mark.parametrize("method", ["gn", "lm"])
+def test_per_run_free_masks_hold_a_different_parameter_in_each_run(method):
+    # Reference: scipy.optimize.least_squares on each reduced problem (profile likelihood needs
+    # runs that hold different parameters fixed in one batch).
+    problem = two_exponentials()
+    start = np.array([4.0, 1.5, 2.5, 0.25])
+    free = ~np.eye(4, dtype=bool)
+    result = fit_batch(problem, np.tile(start, (4, 1)), free=free, method=method, tol=1e-12)
+    for row in range(4):
+        ok, reference, _ = scipy_fit(problem, start, free[row])
+        assert ok and result.outcome[row] == Outcome.CONVERGED
+        assert result.params[row, row] == start[row]
+        np.testing.assert_allclose(result.params[row], reference, rtol=1e-7)
+
+
 def test_history_keeps_the_last_iterates_oldest_first():
     result = fit_batch(cycling_problem(), [[0.0], [0.0]], [1.0, 0.5], history=3)
     assert result.history.shape == (2, 3, 1)
@@ -334,6 +349,7 @@ def test_central_differences_match_calculus():
     ({"method": "newton"}, "method"),
     ({"y": np.ones(7)}, "y must have shape"),
     ({"free": [False] * 4}, "at least one True"),
+    ({"free": [[True] * 4, [False] * 4]}, "at least one True"),
 ])
 def test_bad_arguments_are_refused_with_a_clear_message(kwargs, message):
     problem = two_exponentials()

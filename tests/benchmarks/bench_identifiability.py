@@ -87,11 +87,10 @@ def measure(name: str, problem: Problem, start: np.ndarray, points: int, repeat:
     steps = (points - 1) // 2
     grid = plan_grid(params, estimates.t_quantile * estimates.std_errors, np.full(len(params), np.nan),
                      np.full(len(params), np.nan), steps, reach=4.0, fallback=np.abs(params))
-    scale = np.where(params != 0, np.abs(params), 1.0)
     batched_times, baseline_times = [], []
     for _ in range(repeat):
         started = time.perf_counter()
-        profiles = profile_all(problem, params, estimates.ssr, grid, scale, 0.95)
+        profiles = profile_all(problem, params, estimates.ssr, grid, 0.95)
         batched_times.append(time.perf_counter() - started)
         started = time.perf_counter()
         ceiling = profiles.ssr_min + CEILING_RISES * (profiles.threshold - profiles.ssr_min)
