@@ -18,7 +18,7 @@ import numpy as np
 from scipy import stats
 
 from .disagreement import Flag, IntervalComparison, compare_intervals
-from .engine import fit_batch
+from .engine import RefitSettings, fit_batch
 from .errors import InputError
 from .estimates import Estimates, estimate
 from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percentile_interval
@@ -41,16 +41,6 @@ MIN_USED = 10
 #: Percentile and BCa intervals at the 95% level need about this many replicates for their ends
 #: to settle (Efron & Tibshirani 1993; value from memory).
 ADVISED_REPLICATES = 1000
-
-
-@dataclass(frozen=True)
-class RefitSettings:
-    """How every replicate is refitted: step factor α, solver method, tolerance, iteration limit."""
-
-    step_factor: float = 1.0
-    method: str = "gn"
-    tolerance: float = 1e-8
-    max_iterations: int = 200
 
 
 @dataclass

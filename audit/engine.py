@@ -29,6 +29,16 @@ METHODS = ("gn", "lm")
 BLOCK_SIZE = 1024
 
 
+@dataclass(frozen=True)
+class RefitSettings:
+    """How a stage runs its refits: step factor α, method, tolerance and iteration limit."""
+
+    step_factor: float = 1.0
+    method: str = "gn"
+    tolerance: float = 1e-8
+    max_iterations: int = 200
+
+
 @dataclass
 class BatchFit:
     """The end of every run of one ``fit_batch`` call.

@@ -22,7 +22,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .collinearity import Collinearity, collinearity_indices
-from .engine import fit_batch
+from .engine import RefitSettings, fit_batch
 from .errors import InputError
 from .estimates import Estimates, estimate
 from .jsonable import jsonable
@@ -30,7 +30,7 @@ from .linsolve import RANK_TOLERANCE
 from .outcomes import Outcome
 from .parallel import ParallelPlan
 from .problem import Problem
-from .profiles import SIDE_STATUS, Profiles, WalkSettings, plan_grid, profile_all
+from .profiles import SIDE_STATUS, Profiles, plan_grid, profile_all
 from .settings import IdentifiabilitySettings, SolverSettings
 from .weak_directions import WEAK_INDEX, condition_indices, describe, singular_values, weak_rows
 
@@ -248,7 +248,7 @@ def analyse(problem: Problem, params: np.ndarray, *, lower: np.ndarray, upper: n
     steps = max(2, (settings.profile_points - 1) // 2)
     grid = plan_grid(params, estimates.t_quantile * estimates.std_errors, lower, upper, steps,
                      settings.profile_reach, fallback=np.maximum(np.abs(params), typical))
-    walk = WalkSettings(step_factor=solver.step_factors[0], tolerance=solver.tolerance,
+    walk = RefitSettings(step_factor=solver.step_factors[0], tolerance=solver.tolerance,
                         max_iterations=solver.max_iterations)
     profiles = profile_all(problem, params, estimates.ssr, grid, settings.confidence, walk, plan, on_step)
     result = Identifiability(

@@ -25,7 +25,7 @@ from functools import partial
 import numpy as np
 from scipy import stats
 
-from .engine import fit_batch
+from .engine import RefitSettings, fit_batch
 from .jsonable import jsonable
 from .outcomes import Outcome
 from .parallel import ParallelPlan, map_chunks
@@ -61,15 +61,6 @@ class ProfileGrid:
 
     values: np.ndarray
     clipped: np.ndarray
-
-
-@dataclass(frozen=True)
-class WalkSettings:
-    """Solver settings of the profile refits."""
-
-    step_factor: float = 1.0
-    tolerance: float = 1e-8
-    max_iterations: int = 200
 
 
 @dataclass
@@ -171,7 +162,7 @@ def plan_grid(estimate: np.ndarray, half_width: np.ndarray, lower_bound: np.ndar
 
 
 def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: ProfileGrid, confidence: float,
-                walk: WalkSettings = WalkSettings(), plan: ParallelPlan | None = None,
+                walk: RefitSettings = RefitSettings(), plan: ParallelPlan | None = None,
                 on_step=None) -> Profiles:
     """Walk every profile outward from the best fit and find where each crosses the threshold.
 
@@ -230,7 +221,7 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
     )
 
 
-def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, walk: WalkSettings,
+def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, walk: RefitSettings,
           ceiling: float, group: np.ndarray, on_step=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Walk the profiles of the parameters in ``group`` (both sides), one batch per step.
 
@@ -276,16 +267,16 @@ def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, walk: Walk
 
 
 def _refit(problem: Problem, start: np.ndarray, pinned: np.ndarray,
-           walk: WalkSettings) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+           walk: RefitSettings) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Refit every run with its own parameter ``pinned`` (B,) held at its start value.
 
-    Gauss-Newton first, then Levenberg-Marquardt where it failed. A Levenberg-Marquardt run that
+    The refit settings' method first (Gauss-Newton by default), then Levenberg-Marquardt where it failed. A Levenberg-Marquardt run that
     settles on a rank-deficient Jacobian still sits at the smallest SSR along its valley, so it
     counts as settled for the profile.
     """
     free = np.arange(problem.n_params)[None, :] != pinned[:, None]
     options = dict(tol=walk.tolerance, max_iter=walk.max_iterations)
-    first = fit_batch(problem, start, walk.step_factor, free=free, method="gn", **options)
+    first = fit_batch(problem, start, walk.step_factor, free=free, method=walk.method, **options)
     found, ssr, codes = first.params.copy(), first.ssr.copy(), first.outcome.copy()
     retry = np.flatnonzero(codes != Outcome.CONVERGED)
     if len(retry):

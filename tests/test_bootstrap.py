@@ -12,7 +12,8 @@ import pytest
 from scipy import stats
 from scipy.optimize import least_squares
 
-from audit.bootstrap import RefitSettings, bootstrap_scenario, run_bootstrap
+from audit.bootstrap import bootstrap_scenario, run_bootstrap
+from audit.engine import RefitSettings
 from audit.cli import main
 from audit.engine import fit_batch
 from audit.figures.bootstrap import write_figures
