@@ -270,9 +270,9 @@ def _refit(problem: Problem, start: np.ndarray, pinned: np.ndarray,
            walk: RefitSettings) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Refit every run with its own parameter ``pinned`` (B,) held at its start value.
 
-    The refit settings' method first (Gauss-Newton by default), then Levenberg-Marquardt where it failed. A Levenberg-Marquardt run that
-    settles on a rank-deficient Jacobian still sits at the smallest SSR along its valley, so it
-    counts as settled for the profile.
+    The settings' method first (Gauss-Newton by default), then Levenberg-Marquardt where it
+    failed. A Levenberg-Marquardt run that settles on a rank-deficient Jacobian still sits at the
+    smallest SSR along its valley, so it counts as settled for the profile.
     """
     free = np.arange(problem.n_params)[None, :] != pinned[:, None]
     options = dict(tol=walk.tolerance, max_iter=walk.max_iterations)
