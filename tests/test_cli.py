@@ -34,6 +34,10 @@ def test_check_bad_input_exits_2_with_one_line(capsys, tmp_path):
     status, out, err = run(capsys, "check", str(tmp_path))
     assert status == 2 and out == ""
     assert err.strip().count("\n") == 0 and "scenario file not found" in err
+    (tmp_path / "scenario.toml").write_text("[data]\nfiel = 'x.csv'\n[model]\n[parameters]\n")
+    status, _, err = run(capsys, "check", str(tmp_path))
+    # Square brackets of section names must survive the terminal's markup.
+    assert status == 2 and "[data]: unknown key 'fiel'" in err
 
 
 def test_fit_json_matches_scipy_and_exits_0(capsys):

@@ -9,10 +9,10 @@ import argparse
 import sys
 
 from .. import __version__
-from . import bootstrap, check, derivatives, fit, identify, strd
+from . import bootstrap, check, derivatives, fit, identify, strd, sweep
 from .common import run_handler
 
-COMMANDS = (check, fit, strd, derivatives, bootstrap, identify)
+COMMANDS = (check, fit, strd, sweep, derivatives, bootstrap, identify)
 
 DESCRIPTION = """\
 fitaudit audits a nonlinear least-squares fit before you trust, publish or hand it over:

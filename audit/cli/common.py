@@ -7,6 +7,7 @@ import sys
 from collections.abc import Callable
 
 from rich.console import Console
+from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
 from ..errors import InputError
@@ -49,7 +50,7 @@ def run_handler(args: argparse.Namespace) -> int:
     try:
         return args.handler(args)
     except InputError as error:
-        err.print(f"[bold red]fitaudit: error:[/] {error}", markup=True, soft_wrap=True)
+        err.print(f"[bold red]fitaudit: error:[/] {escape(str(error))}", markup=True, soft_wrap=True)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         err.print("fitaudit: interrupted")
@@ -60,7 +61,7 @@ def open_scenario(args: argparse.Namespace) -> Scenario:
     """Load the scenario named on the command line and show its warnings (not in JSON mode)."""
     scenario = load_scenario(args.scenario)
     for warning in scenario.warnings:
-        err.print(f"[yellow]warning:[/] {warning}", soft_wrap=True)
+        err.print(f"[yellow]warning:[/] {escape(warning)}", soft_wrap=True)
     return scenario
 
 

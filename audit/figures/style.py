@@ -24,6 +24,18 @@ OUTCOME_STYLE: dict[str, tuple[str, str, str]] = {
     "model_error": ("#d9d9d9", "--", "model error"),
 }
 
+#: Marker of each kind of end (same keys as OUTCOME_STYLE), for paths and point plots, so
+#: that kinds stay apart without colour.
+OUTCOME_MARKERS: dict[str, str] = {
+    "best": "o",
+    "other": "s",
+    "oscillating": "D",
+    "stalled": "v",
+    "diverged": "^",
+    "singular": "P",
+    "model_error": "X",
+}
+
 #: A qualitative sequence for distinct solutions, dark to light, for maps with several optima.
 SOLUTION_COLOURS = ("#1b3a5c", "#3f7f6e", "#7fb069", "#e6aa68", "#ca3c25", "#6c4f77", "#a5a5a5")
 

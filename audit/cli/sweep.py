@@ -1,0 +1,211 @@
+"""``fitaudit sweep``: fits from many starts × step factors; basins, safe step factor and start."""
+from __future__ import annotations
+
+import argparse
+import json
+import time
+from pathlib import Path
+
+import numpy as np
+from rich.table import Table
+
+from ..errors import InputError
+from ..figures.sweep import write_figures
+from ..parallel import BACKENDS, ParallelPlan
+from ..starts import DESIGNS
+from ..sweep import SweepRequest, run_sweep
+from ..sweep_result import BEST, CATEGORIES, SweepResult
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, err, number,
+                     open_scenario, out, print_json, progress_bar)
+
+DESCRIPTION = """\
+Does the fit depend on where it starts, or on the step factor? This command fits the model from
+many starting guesses spread over the parameters' ranges (scenario.toml [parameters] range),
+each with every step factor, and sorts every run by how it ended:
+
+  best         converged to the best solution found (lowest residual sum of squares)
+  other        converged, but to another solution (a different local optimum)
+  diverged     parameters or the residual sum of squares ran away
+  oscillating  successive steps kept reversing without the fit improving
+  stalled      the iteration limit came first
+  singular     the Jacobian lost rank
+  model error  the model gave no finite values
+
+For each step factor it reports the share of starts in each kind ("basin share" = best), the
+median and 90th-percentile iterations, and a safe starting region: the largest box around the
+best fit (in the axes' own linear or log units) inside which at least 99% of the starts
+reached the best solution. It recommends the step factor with the highest basin share (then
+the fewest iterations) and says whether the scenario's own start lies inside its safe region.
+
+Basin maps are 2-D slices through the best fit ([sweep] maps, default the first two
+parameters). Every finished chunk is cached under OUT/cache, so an interrupted sweep (Ctrl-C,
+a crash) continues where it stopped when run again with the same settings. Results depend on
+the scenario's [sweep] seed, never on --jobs or the backend.
+
+On a Dask cluster: run `dask scheduler` on one machine and `dask worker tcp://HOST:8786` on
+each machine that should compute (each needs fitaudit installed), then pass
+--backend dask --scheduler tcp://HOST:8786.
+
+Writes OUT/sweep.json and OUT/figures/sweep-*.{png,pdf}.
+
+Exit status: 0 when the scenario's start lies inside the safe region of the recommended step
+factor, 1 when it does not (or no safe region was found), 2 bad input."""
+
+EXAMPLES = """\
+  fitaudit sweep scenarios/probe-cooling
+  fitaudit sweep scenarios/probe-cooling --design lhs --points 20000 --step-factors 1,0.5,0.2
+  fitaudit sweep scenarios/probe-cooling --jobs 2 -o audit-out --json
+  fitaudit sweep scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
+
+DEFAULT_OUT = "fitaudit-output"
+
+
+def register(subparsers) -> None:
+    parser = add_command(subparsers, "sweep", "fits from many starts and step factors: basins, safe start and factor",
+                         DESCRIPTION, EXAMPLES, run)
+    add_scenario_argument(parser)
+    parser.add_argument("--design", choices=DESIGNS,
+                        help="how starts are spread: a full grid, a Sobol' sequence or a Latin hypercube "
+                             "(default: the scenario's [sweep] design)")
+    parser.add_argument("--points", type=int, metavar="N",
+                        help="number of starts (a grid rounds down to a whole number per axis; "
+                             "default: the scenario's [sweep] points)")
+    parser.add_argument("--step-factors", type=_numbers, metavar="A,B,...",
+                        help="step factors in (0, 1], comma-separated, e.g. 1,0.5,0.25 "
+                             "(default: the scenario's [solver] step_factors)")
+    parser.add_argument("--methods", type=_words, metavar="gn,lm",
+                        help="solvers to sweep: gn (Gauss-Newton), lm (Levenberg-Marquardt) or both "
+                             "(default: the scenario's [sweep] methods)")
+    parser.add_argument("--resolution", type=int, metavar="N",
+                        help="points per axis of each basin map (default: the scenario's [sweep] resolution)")
+    parser.add_argument("--jobs", type=int, default=-1, metavar="N",
+                        help="worker processes on this machine (default: -1, every core)")
+    parser.add_argument("--backend", choices=BACKENDS, default="processes",
+                        help="processes (this machine) or dask (a running Dask cluster, see --scheduler)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="address of the Dask scheduler, e.g. tcp://10.0.0.5:8786")
+    parser.add_argument("-o", "--out", default=DEFAULT_OUT, metavar="OUT",
+                        help=f"folder for sweep.json, the figures and the chunk cache (default: {DEFAULT_OUT})")
+    add_json_option(parser)
+
+
+def _numbers(text: str) -> tuple[float, ...]:
+    try:
+        return tuple(float(item) for item in text.split(",") if item.strip())
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected numbers separated by commas, got {text!r}") from None
+
+
+def _words(text: str) -> tuple[str, ...]:
+    return tuple(item.strip() for item in text.split(",") if item.strip())
+
+
+def run(args: argparse.Namespace) -> int:
+    scenario = open_scenario(args)
+    request = SweepRequest.from_scenario(scenario, design=args.design, points=args.points,
+                                         step_factors=args.step_factors, methods=args.methods,
+                                         resolution=args.resolution)
+    plan = ParallelPlan(jobs=args.jobs, backend=args.backend, scheduler=args.scheduler)
+    folder = Path(args.out)
+    started = time.perf_counter()
+    with progress_bar("starts", disable=args.json) as bar:
+        task = bar.add_task("", total=None, rate="")
+
+        def advance(done: int, total: int, computed: int) -> None:
+            # The rate counts only starts fitted now, not chunks found in the cache.
+            elapsed = max(time.perf_counter() - started, 1e-9)
+            bar.update(task, completed=done, total=total, rate=f"{computed / elapsed:,.0f}/s")
+
+        result = run_sweep(scenario, request, plan, folder, on_progress=advance)
+    files = write_outputs(result, folder)
+    if args.json:
+        print_json({**result.to_dict(), "files": [str(path) for path in files]})
+    else:
+        show(result, files)
+    inside = result.recommended is not None and bool(result.start_inside[result.recommended])
+    return EXIT_OK if inside else EXIT_FINDING
+
+
+def write_outputs(result: SweepResult, folder: Path) -> list[Path]:
+    """Write ``sweep.json`` and the figures; return the paths written.
+
+    Raises:
+        InputError: when the folder cannot be written.
+    """
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        path = folder / "sweep.json"
+        path.write_text(json.dumps(result.to_dict(), allow_nan=False) + "\n")
+        return [path, *write_figures(result, folder / "figures")]
+    except OSError as error:
+        raise InputError(f"-o {folder}: cannot write the results there: {error.strerror}") from None
+
+
+def show(result: SweepResult, files: list[Path]) -> None:
+    chunks = result.chunks
+    out.print(f"[bold]{result.points} starts[/] ({result.design} design) × {len(result.step_factors)} step factor(s)"
+              f"; {chunks['computed']} chunk(s) computed, {chunks['reused']} taken from the cache")
+    table = Table(title="how the runs ended, per step factor (shares of the starts)", title_justify="left")
+    for heading in ("method", "step factor", *[label.replace("_", " ") for label in CATEGORIES],
+                    "iterations (median / 90%)", "safe radius"):
+        table.add_column(heading, justify="left" if heading == "method" else "right")
+    for m, method in enumerate(result.methods):
+        for f, factor in enumerate(result.step_factors):
+            mark = " *" if result.recommended == (m, f) else ""
+            shares = [_share(result.shares[m, f, k]) for k in range(len(CATEGORIES))]
+            iterations = f"{number(result.iterations_median[m, f, BEST])} / {number(result.iterations_p90[m, f, BEST])}"
+            table.add_row(method, f"{factor:g}{mark}", *shares, iterations, number(result.region_radius[m, f], 3))
+    out.print(table)
+    _show_solutions(result)
+    _show_recommendation(result)
+    for note in result.warnings:
+        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
+    out.print("wrote " + ", ".join(str(path) for path in files), soft_wrap=True)
+
+
+def _share(value: float) -> str:
+    return "—" if value == 0 else f"{value:.1%}"
+
+
+def _show_solutions(result: SweepResult) -> None:
+    if not len(result.solution_ssr):
+        out.print("[red]no run converged[/]")
+        return
+    table = Table(title=f"distinct solutions ({len(result.solution_ssr)})", title_justify="left")
+    for heading in ("#", "SSR", *result.names, "largest share"):
+        table.add_column(heading, justify="right")
+    shown = min(len(result.solution_ssr), 8)
+    for s in range(shown):
+        label = "best" if s == 0 else str(s + 1)
+        table.add_row(label, number(result.solution_ssr[s], 8), *(number(v, 8) for v in result.solution_params[s]),
+                      f"{np.max(result.solution_shares[..., s]):.1%}")
+    out.print(table)
+    if shown < len(result.solution_ssr):
+        out.print(f"… and {len(result.solution_ssr) - shown} more in sweep.json")
+
+
+def _show_recommendation(result: SweepResult) -> None:
+    if result.recommended is None:
+        out.print(f"[red]no recommendation:[/] {result.recommendation_reason}")
+        return
+    m, f = result.recommended
+    out.print(f"[bold]recommended:[/] {result.methods[m]} with step factor {result.step_factors[f]:g}: "
+              f"{result.shares[m, f, BEST]:.1%} of starts reach the best solution in "
+              f"{number(result.iterations_median[m, f, BEST])} iterations (median); {result.recommendation_reason}",
+              soft_wrap=True)
+    if not np.isfinite(result.region_radius[m, f]):
+        err.print(f"[yellow]no safe region:[/] no box around the best fit holding at least "
+                  f"{result.region_min_starts} starts had {result.region_level:.0%} of them reach the best solution")
+        return
+    table = Table(title=f"safe starting region: {result.region_starts[m, f]} starts inside, "
+                        f"{result.region_share[m, f]:.1%} reached the best", title_justify="left")
+    for heading in ("parameter", "best fit", "safe from", "safe to", "scenario start", "inside"):
+        table.add_column(heading, justify="left" if heading == "parameter" else "right")
+    for j, name in enumerate(result.names):
+        table.add_row(name, number(result.best_params[j], 8), number(result.region_lower[m, f, j], 6),
+                      number(result.region_upper[m, f, j], 6), number(result.start[j], 6),
+                      "yes" if result.start_inside_parameter[m, f, j] else "[red]no[/]")
+    out.print(table)
+    verdict = "inside" if result.start_inside[m, f] else "[red]outside[/]"
+    out.print(f"the scenario's start lies {verdict} the safe region (distance {result.start_distance:.3f} of the "
+              f"ranges from the best fit; the region reaches {result.region_radius[m, f]:.3f})")

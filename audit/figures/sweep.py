@@ -1,0 +1,117 @@
+"""Figures of the multistart sweep, drawn from a ``SweepResult`` only.
+
+- ``sweep-outcomes``: per step factor (and method), how the runs ended, as stacked shares.
+- ``sweep-basins-<x>-<y>[-lm]``: basin maps, one panel per step factor (``sweep_maps``).
+- ``sweep-iterations-<x>-<y>[-lm]``: iterations to the best solution on the same maps.
+- ``sweep-cases``: example failing runs, each parameter against the iteration.
+- ``sweep-cases-map-<x>-<y>[-lm]``: failing runs started on a map, their paths on it.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
+
+from ..sweep_result import CATEGORIES, SweepResult
+from .style import OUTCOME_MARKERS, OUTCOME_STYLE, plt, save
+from .sweep_maps import basin_figure, cases_on_map_figure, iteration_figure
+
+#: Line styles that tell step factors apart in the path plots (cycled).
+FACTOR_LINES = ("-", "--", ":", "-.")
+#: Paths are shown within the range widened by this fraction on each side; runaway iterates
+#: leave the panel instead of flattening everything else.
+PATH_MARGIN = 0.5
+
+
+def write_figures(result: SweepResult, folder: Path) -> list[Path]:
+    """Draw every sweep figure into ``folder``; return the files written (PNG and PDF each)."""
+    folder = Path(folder)
+    paths = _outcome_bars(result, folder)
+    for basin_map in result.maps:
+        for m, method in enumerate(result.methods):
+            suffix = f"{basin_map.x_name}-{basin_map.y_name}" + ("" if method == "gn" else f"-{method}")
+            paths += basin_figure(result, basin_map, m, folder, f"sweep-basins-{suffix}")
+            paths += iteration_figure(result, basin_map, m, folder, f"sweep-iterations-{suffix}")
+            paths += cases_on_map_figure(result, basin_map, m, folder, f"sweep-cases-map-{suffix}")
+    paths += _paths_figure(result, folder)
+    return paths
+
+
+def _outcome_bars(result: SweepResult, folder: Path) -> list[Path]:
+    labels = [f"{factor:g}" + ("" if len(result.methods) == 1 else f"\n{method}")
+              for method in result.methods for factor in result.step_factors]
+    shares = result.shares.reshape(-1, len(CATEGORIES))
+    figure, axes = plt.subplots(figsize=(max(4.8, 1.0 * len(labels) + 2.6), 4.4), constrained_layout=True)
+    positions = np.arange(len(labels))
+    bottom = np.zeros(len(labels))
+    handles = []
+    for k, label in enumerate(CATEGORIES):
+        if not shares[:, k].any():
+            continue
+        colour, hatch, text = OUTCOME_STYLE[label]
+        axes.bar(positions, shares[:, k], bottom=bottom, width=0.62, color=colour, hatch=hatch, edgecolor="black",
+                 linewidth=0.5)
+        handles.append(Patch(facecolor=colour, hatch=hatch, edgecolor="black", linewidth=0.5, label=text))
+        bottom += shares[:, k]
+    if result.recommended is not None:
+        m, f = result.recommended
+        column = m * len(result.step_factors) + f
+        axes.annotate("recommended", (column, 1.0), xytext=(0, 4), textcoords="offset points", ha="center",
+                      fontsize=8)
+    axes.set_xticks(positions, labels)
+    axes.set_xlabel("step factor")
+    axes.set_ylabel("share of starts")
+    axes.set_ylim(0, 1.08)
+    axes.yaxis.set_major_formatter(plt.FuncFormatter(lambda value, _: f"{value:.0%}"))
+    axes.legend(handles=handles[::-1], loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=8, frameon=False)
+    axes.set_title(f"how {result.points} starts ended ({result.design} design)", fontsize=10)
+    return save(figure, folder, "sweep-outcomes")
+
+
+def _paths_figure(result: SweepResult, folder: Path) -> list[Path]:
+    cases = [case for case in result.cases if case.source == "design"]
+    if not cases:
+        return []
+    kinds = list(dict.fromkeys(case.kind for case in cases))
+    n = len(result.names)
+    figure, axes = plt.subplots(n, len(kinds), figsize=(max(3.3 * len(kinds) + 0.6, 6.0), 1.9 * n + 1.2),
+                                constrained_layout=True, squeeze=False, sharex="col")
+    factors = list(result.step_factors)
+    for column, kind in enumerate(kinds):
+        colour = OUTCOME_STYLE[kind][0]
+        for case in (case for case in cases if case.kind == kind):
+            style = FACTOR_LINES[factors.index(case.step_factor) % len(FACTOR_LINES)]
+            steps = np.arange(len(case.path))
+            for j in range(n):
+                axes[j, column].plot(steps, case.path[:, j], color=colour, linestyle=style, linewidth=0.9,
+                                     marker=OUTCOME_MARKERS[kind], markersize=2.5, markevery=max(1, len(steps) // 12))
+        axes[0, column].set_title(OUTCOME_STYLE[kind][2], fontsize=9)
+        axes[-1, column].set_xlabel("iteration")
+        for j in range(n):
+            _path_limits(axes[j, column], result, j)
+            if np.isfinite(result.best_params[j]):
+                axes[j, column].axhline(result.best_params[j], color="black", linewidth=0.6, linestyle=(0, (1, 2)))
+    for j, name in enumerate(result.names):
+        axes[j, 0].set_ylabel(name)
+    handles = [Line2D([], [], color="black", linestyle=FACTOR_LINES[f % len(FACTOR_LINES)],
+                      label=f"step factor {factor:g}") for f, factor in enumerate(factors)
+               if any(case.step_factor == factor for case in cases)]
+    handles.append(Line2D([], [], color="black", linewidth=0.6, linestyle=(0, (1, 2)), label="best fit"))
+    figure.legend(handles=handles, loc="outside lower center", ncol=len(handles), fontsize=8, frameon=False)
+    figure.suptitle("example failing runs from the design: parameters at each iteration\n"
+                    "(a path leaving its panel ran far beyond the range, or to zero or below on a log axis)",
+                    fontsize=9)
+    return save(figure, folder, "sweep-cases")
+
+
+def _path_limits(axes, result: SweepResult, j: int) -> None:
+    low, high = result.lower[j], result.upper[j]
+    if result.log[j]:
+        axes.set_yscale("log")
+        span = np.log10(high / low)
+        axes.set_ylim(low / 10 ** (PATH_MARGIN * span), high * 10 ** (PATH_MARGIN * span))
+    else:
+        span = high - low
+        axes.set_ylim(low - PATH_MARGIN * span, high + PATH_MARGIN * span)
