@@ -231,7 +231,7 @@ def analyse(problem: Problem, params: np.ndarray, *, lower: np.ndarray, upper: n
         InputError: for m ≤ n.
     """
     params = np.asarray(params, dtype=float)
-    names, n = problem.names, problem.n_params
+    names = problem.names
     estimates = estimate(problem, params, settings.confidence)
     jacobian = problem.derivatives(params[None, :])[0].T
     if problem.sqrt_weights is not None:

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import time
 from pathlib import Path
 
@@ -11,11 +10,11 @@ from rich.table import Table
 from ..bootstrap import BootstrapResult, bootstrap_scenario, total_refits
 from ..errors import InputError
 from ..figures.bootstrap import write_figures
-from ..parallel import BACKENDS, ParallelPlan
 from ..replicates import FATE_MEANINGS
 from ..resampling import SCHEMES, WILD_MULTIPLIERS
-from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
-                     open_scenario, out, print_json, progress_bar)
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
+                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
+                     write_results)
 
 DESCRIPTION = """\
 How uncertain are the fitted parameters, and can the linearised standard errors be trusted?
@@ -48,9 +47,6 @@ EXAMPLES = """\
   fitaudit bootstrap scenarios/probe-cooling --method pairs --jobs 2 -o audit-out --json
   fitaudit bootstrap scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
 
-DEFAULT_OUT = "fitaudit-output"
-
-
 def register(subparsers) -> None:
     parser = add_command(subparsers, "bootstrap", "bootstrap intervals beside the asymptotic ones, with failed refits",
                          DESCRIPTION, EXAMPLES, run)
@@ -67,14 +63,8 @@ def register(subparsers) -> None:
                              "default: the scenario's [bootstrap] leverage_adjusted)")
     parser.add_argument("--step-factor", type=float, metavar="A",
                         help="step factor of the refits, in (0, 1] (default: the first of the scenario's step_factors)")
-    parser.add_argument("--jobs", type=int, default=-1, metavar="N",
-                        help="worker processes on this machine (default: -1, every core)")
-    parser.add_argument("--backend", choices=BACKENDS, default="processes",
-                        help="processes (this machine) or dask (a running Dask cluster, see --scheduler)")
-    parser.add_argument("--scheduler", metavar="ADDRESS",
-                        help="address of the Dask scheduler, e.g. tcp://10.0.0.5:8786")
-    parser.add_argument("-o", "--out", default=DEFAULT_OUT, metavar="OUT",
-                        help=f"folder for bootstrap.json and the figures (default: {DEFAULT_OUT})")
+    add_parallel_options(parser)
+    add_output_option(parser, "bootstrap.json and the figures")
     add_json_option(parser)
 
 
@@ -84,7 +74,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--samples {args.samples}: must be at least 2")
     if args.step_factor is not None and not 0 < args.step_factor <= 1:
         raise InputError(f"--step-factor {args.step_factor}: must lie in (0, 1]")
-    plan = ParallelPlan(jobs=args.jobs, backend=args.backend, scheduler=args.scheduler)
+    plan = parallel_plan(args)
     samples = scenario.bootstrap.samples if args.samples is None else args.samples
     started = time.perf_counter()
     with progress_bar("refits", disable=args.json) as bar:
@@ -98,27 +88,12 @@ def run(args: argparse.Namespace) -> int:
                                     wild_multipliers=args.wild_weights, leverage_adjusted=args.leverage_adjusted,
                                     plan=plan, progress=advance)
     folder = Path(args.out)
-    files = write_outputs(result, folder)
+    files = write_results(result, folder, "bootstrap", write_figures)
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:
         show(result, files)
     return EXIT_OK if not result.flags and result.replicates.failure_share == 0 else EXIT_FINDING
-
-
-def write_outputs(result: BootstrapResult, folder: Path) -> list[Path]:
-    """Write ``bootstrap.json`` and the figures; return the paths written.
-
-    Raises:
-        InputError: when the folder cannot be written.
-    """
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        path = folder / "bootstrap.json"
-        path.write_text(json.dumps(result.to_dict(), indent=1, allow_nan=False) + "\n")
-        return [path, *write_figures(result, folder / "figures")]
-    except OSError as error:
-        raise InputError(f"-o {folder}: cannot write the results there: {error.strerror}") from None
 
 
 def show(result: BootstrapResult, files: list[Path]) -> None:

@@ -5,12 +5,14 @@ import argparse
 import json
 import sys
 from collections.abc import Callable
+from pathlib import Path
 
 from rich.console import Console
 from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
 from ..errors import InputError
+from ..parallel import BACKENDS, ParallelPlan
 from ..scenario import Scenario, load_scenario
 
 #: Exit statuses shared by all commands.
@@ -43,6 +45,52 @@ def add_scenario_argument(parser: argparse.ArgumentParser) -> None:
 def add_json_option(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true",
                         help="print one JSON object on standard output instead of tables (for scripts)")
+
+
+#: Where results go when -o is not given.
+DEFAULT_OUT = "fitaudit-output"
+
+
+def add_parallel_options(parser: argparse.ArgumentParser, default_jobs: int = -1, dask: bool = True) -> None:
+    """--jobs, and with ``dask`` also --backend and --scheduler."""
+    every = "every core" if default_jobs == -1 else f"{default_jobs}"
+    parser.add_argument("--jobs", type=int, default=default_jobs, metavar="N",
+                        help=f"worker processes on this machine, -1 for every core (default: {every})")
+    if dask:
+        parser.add_argument("--backend", choices=BACKENDS, default="processes",
+                            help="processes (this machine) or dask (a running Dask cluster, see --scheduler)")
+        parser.add_argument("--scheduler", metavar="ADDRESS",
+                            help="address of the Dask scheduler, e.g. tcp://10.0.0.5:8786")
+
+
+def parallel_plan(args: argparse.Namespace) -> ParallelPlan:
+    """The ParallelPlan the options of ``add_parallel_options`` ask for."""
+    return ParallelPlan(jobs=args.jobs, backend=getattr(args, "backend", "processes"),
+                        scheduler=getattr(args, "scheduler", None))
+
+
+def add_output_option(parser: argparse.ArgumentParser, what: str, default: str | None = DEFAULT_OUT) -> None:
+    """-o/--out: the folder for ``what`` (e.g. "sweep.json, the figures and the chunk cache")."""
+    shown = f"default: {default}" if default else "default: nothing is written"
+    parser.add_argument("-o", "--out", default=default, metavar="OUT", help=f"folder for {what} ({shown})")
+
+
+def write_results(result, folder: Path, name: str, write_figures: Callable[[object, Path], list[Path]]) -> list[Path]:
+    """Write ``folder/<name>.json`` from ``result.to_dict()`` and the stage's figures.
+
+    Returns:
+        The paths written.
+
+    Raises:
+        InputError: when the folder cannot be written.
+    """
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        path = folder / f"{name}.json"
+        path.write_text(json.dumps(result.to_dict(), indent=1, allow_nan=False) + "\n")
+        return [path, *write_figures(result, folder / "figures")]
+    except OSError as error:
+        raise InputError(f"-o {folder}: cannot write the results there: {error.strerror}") from None
 
 
 def run_handler(args: argparse.Namespace) -> int:

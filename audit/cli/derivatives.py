@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import math
 from pathlib import Path
 
@@ -12,8 +11,8 @@ from ..derivatives import SOURCES, DerivativeAudit, audit_derivatives
 from ..errors import InputError
 from ..figures.derivatives import write_figures
 from ..outcomes import Outcome
-from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
-                     open_scenario, out, print_json, progress_bar)
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_scenario_argument,
+                     number, open_scenario, out, print_json, progress_bar, write_results)
 
 DESCRIPTION = """\
 Are the hand-derived partial derivatives (the model file's jacobian function) right?
@@ -55,8 +54,7 @@ def register(subparsers) -> None:
     parser.add_argument("--points", type=int, metavar="N",
                         help="check points drawn inside the parameter ranges, besides the best fit and the start "
                              "(default: the scenario's [derivatives] points)")
-    parser.add_argument("-o", "--out", metavar="OUT",
-                        help="also write OUT/derivatives.json and figures into OUT/figures")
+    add_output_option(parser, "derivatives.json and the figures", default=None)
     add_json_option(parser)
 
 
@@ -73,27 +71,12 @@ def run(args: argparse.Namespace) -> int:
 
         result = audit_derivatives(scenario, args.points, progress=advance)
         bar.update(task, completed=len(stages), rate="done")
-    files = write_outputs(result, Path(args.out)) if args.out else []
+    files = write_results(result, Path(args.out), "derivatives", write_figures) if args.out else []
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:
         show(result, files)
     return EXIT_FINDING if result.has_finding else EXIT_OK
-
-
-def write_outputs(result: DerivativeAudit, folder: Path) -> list[Path]:
-    """Write ``derivatives.json`` and the figures; return the paths written.
-
-    Raises:
-        InputError: when the folder cannot be written.
-    """
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        path = folder / "derivatives.json"
-        path.write_text(json.dumps(result.to_dict(), indent=1, allow_nan=False) + "\n")
-        return [path, *write_figures(result, folder / "figures")]
-    except OSError as error:
-        raise InputError(f"-o {folder}: cannot write the results there: {error.strerror}") from None
 
 
 def show(result: DerivativeAudit, files: list[Path]) -> None:

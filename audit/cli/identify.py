@@ -2,19 +2,17 @@
 from __future__ import annotations
 
 import argparse
-import json
 from pathlib import Path
 
 import numpy as np
 from rich.table import Table
 
-from ..errors import InputError
 from ..figures.identifiability import write_figures
 from ..identifiability import Identifiability, identify_scenario
-from ..parallel import ParallelPlan
 from ..profiles import SIDE_STATUS
-from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
-                     open_scenario, out, print_json, progress_bar)
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
+                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
+                     write_results)
 
 DESCRIPTION = """\
 Fit the scenario from its starting values, then ask whether the data can determine each
@@ -52,17 +50,14 @@ def register(subparsers) -> None:
     parser.add_argument("--points", type=int, metavar="N",
                         help="grid points of each parameter's profile, the estimate included "
                              "(default: [identifiability] profile_points, 41)")
-    parser.add_argument("--jobs", type=int, default=1, metavar="N",
-                        help="worker processes for the profiles, -1 for all cores (default 1: one batch per "
-                             "step for all parameters, best for cheap models)")
-    parser.add_argument("-o", "--out", type=Path, metavar="OUT",
-                        help="folder for identifiability.json and the figures (figures/*.png, *.pdf)")
+    add_parallel_options(parser, default_jobs=1, dask=False)
+    add_output_option(parser, "identifiability.json and the figures", default=None)
     add_json_option(parser)
 
 
 def run(args: argparse.Namespace) -> int:
     scenario = open_scenario(args)
-    plan = ParallelPlan(jobs=args.jobs)
+    plan = parallel_plan(args)
     with progress_bar("profiles", disable=args.json) as progress:
         task = progress.add_task("profiles", total=None, rate="")
 
@@ -70,7 +65,7 @@ def run(args: argparse.Namespace) -> int:
             progress.update(task, completed=done, total=total)
 
         result = identify_scenario(scenario, points=args.points, plan=plan, on_step=on_step)
-    written = _write(result, args.out) if args.out else []
+    written = write_results(result, Path(args.out), "identifiability", write_figures) if args.out else []
     if args.json:
         print_json(result.to_dict())
     else:
@@ -78,16 +73,6 @@ def run(args: argparse.Namespace) -> int:
         for path in written:
             out.print(f"wrote {path}")
     return EXIT_FINDING if result.flagged else EXIT_OK
-
-
-def _write(result: Identifiability, folder: Path) -> list[Path]:
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        path = folder / "identifiability.json"
-        path.write_text(json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n")
-        return [path, *write_figures(result, folder / "figures")]
-    except OSError as error:
-        raise InputError(f"-o {folder}: cannot write there: {error.strerror}") from None
 
 
 def show(result: Identifiability) -> None:

@@ -2,21 +2,19 @@
 from __future__ import annotations
 
 import argparse
-import json
 import time
 from pathlib import Path
 
 import numpy as np
 from rich.table import Table
 
-from ..errors import InputError
 from ..figures.sweep import write_figures
-from ..parallel import BACKENDS, ParallelPlan
 from ..starts import DESIGNS
 from ..sweep import SweepRequest, run_sweep
 from ..sweep_result import BEST, CATEGORIES, SweepResult
-from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, err, number,
-                     open_scenario, out, print_json, progress_bar)
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
+                     add_scenario_argument, err, number, open_scenario, out, parallel_plan, print_json, progress_bar,
+                     write_results)
 
 DESCRIPTION = """\
 Does the fit depend on where it starts, or on the step factor? This command fits the model from
@@ -57,9 +55,6 @@ EXAMPLES = """\
   fitaudit sweep scenarios/probe-cooling --jobs 2 -o audit-out --json
   fitaudit sweep scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
 
-DEFAULT_OUT = "fitaudit-output"
-
-
 def register(subparsers) -> None:
     parser = add_command(subparsers, "sweep", "fits from many starts and step factors: basins, safe start and factor",
                          DESCRIPTION, EXAMPLES, run)
@@ -78,14 +73,8 @@ def register(subparsers) -> None:
                              "(default: the scenario's [sweep] methods)")
     parser.add_argument("--resolution", type=int, metavar="N",
                         help="points per axis of each basin map (default: the scenario's [sweep] resolution)")
-    parser.add_argument("--jobs", type=int, default=-1, metavar="N",
-                        help="worker processes on this machine (default: -1, every core)")
-    parser.add_argument("--backend", choices=BACKENDS, default="processes",
-                        help="processes (this machine) or dask (a running Dask cluster, see --scheduler)")
-    parser.add_argument("--scheduler", metavar="ADDRESS",
-                        help="address of the Dask scheduler, e.g. tcp://10.0.0.5:8786")
-    parser.add_argument("-o", "--out", default=DEFAULT_OUT, metavar="OUT",
-                        help=f"folder for sweep.json, the figures and the chunk cache (default: {DEFAULT_OUT})")
+    add_parallel_options(parser)
+    add_output_option(parser, "sweep.json, the figures and the chunk cache")
     add_json_option(parser)
 
 
@@ -105,7 +94,7 @@ def run(args: argparse.Namespace) -> int:
     request = SweepRequest.from_scenario(scenario, design=args.design, points=args.points,
                                          step_factors=args.step_factors, methods=args.methods,
                                          resolution=args.resolution)
-    plan = ParallelPlan(jobs=args.jobs, backend=args.backend, scheduler=args.scheduler)
+    plan = parallel_plan(args)
     folder = Path(args.out)
     started = time.perf_counter()
     with progress_bar("starts", disable=args.json) as bar:
@@ -117,28 +106,13 @@ def run(args: argparse.Namespace) -> int:
             bar.update(task, completed=done, total=total, rate=f"{computed / elapsed:,.0f}/s")
 
         result = run_sweep(scenario, request, plan, folder, on_progress=advance)
-    files = write_outputs(result, folder)
+    files = write_results(result, folder, "sweep", write_figures)
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:
         show(result, files)
     inside = result.recommended is not None and bool(result.start_inside[result.recommended])
     return EXIT_OK if inside else EXIT_FINDING
-
-
-def write_outputs(result: SweepResult, folder: Path) -> list[Path]:
-    """Write ``sweep.json`` and the figures; return the paths written.
-
-    Raises:
-        InputError: when the folder cannot be written.
-    """
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-        path = folder / "sweep.json"
-        path.write_text(json.dumps(result.to_dict(), allow_nan=False) + "\n")
-        return [path, *write_figures(result, folder / "figures")]
-    except OSError as error:
-        raise InputError(f"-o {folder}: cannot write the results there: {error.strerror}") from None
 
 
 def show(result: SweepResult, files: list[Path]) -> None:
