@@ -14,6 +14,7 @@ from scipy import stats
 
 from .errors import InputError
 from .jsonable import jsonable
+from .linsolve import RANK_TOLERANCE
 from .problem import Problem
 
 
@@ -72,15 +73,16 @@ def inverse_information(derivatives: np.ndarray, sqrt_weights: np.ndarray | None
     """(JᵀWJ)⁻¹ and the scaled condition number, from (n, m) unweighted derivative rows.
 
     Columns are scaled to unit norm before the SVD so that parameters of very different sizes
-    do not cost digits; the inverse is unscaled afterwards. A zero column or a zero singular
-    value gives an all-NaN inverse and an infinite condition number.
+    do not cost digits; the inverse is unscaled afterwards. A zero column, or a Jacobian that has
+    lost rank (the engine's ``RANK_TOLERANCE``), gives an all-NaN inverse and an infinite
+    condition number: no standard error is better than a meaningless huge one.
     """
     weighted = derivatives if sqrt_weights is None else derivatives * sqrt_weights
     norms = np.linalg.norm(weighted, axis=1)
     if not np.all(norms > 0) or not np.all(np.isfinite(weighted)):
         return np.full((len(norms), len(norms)), np.nan), np.inf
     _, values, right = np.linalg.svd((weighted / norms[:, None]).T, full_matrices=False)
-    if values[-1] <= 0:
+    if values[-1] <= RANK_TOLERANCE * values[0]:
         return np.full((len(norms), len(norms)), np.nan), np.inf
     scaled_inverse = (right.T / values**2) @ right
     return scaled_inverse / np.outer(norms, norms), float(values[0] / values[-1])

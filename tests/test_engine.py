@@ -223,6 +223,15 @@ def test_singular_for_a_model_that_only_sees_a_product():
             assert result.outcome[0] == Outcome.SINGULAR, (method, jacobian is None)
 
 
+def test_no_standard_errors_where_the_jacobian_lost_rank():
+    # Linear algebra: JᵀJ of proportional columns has no inverse, so no covariance exists;
+    # reporting huge finite standard errors instead would be a false number.
+    x = np.linspace(1.0, 4.0, 10)
+    problem = Problem(lambda x, a, b: a * b * x, x, 6.0 * x + 0.1 * np.sin(x), ("a", "b"))
+    fitted = estimate(problem, np.array([2.0, 3.0]))
+    assert np.all(np.isnan(fitted.std_errors)) and fitted.condition_number == np.inf
+
+
 def test_stalled_at_the_iteration_limit():
     problem = two_exponentials()
     result = fit_batch(problem, [[3.0, 2.0, 1.0, 0.1]], 0.1, max_iter=5)
