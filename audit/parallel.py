@@ -56,6 +56,14 @@ def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: Para
     Chunks are consumed lazily (a few per worker ahead), so a long iterable of small chunk
     descriptions never sits in memory at once. With one job everything runs in this process.
     """
+    if plan.backend == "dask":
+        # joblib's Dask backend hashes the function in a background thread; an unhashable one
+        # would fail there unseen and leave this generator waiting for ever.
+        try:
+            hash(function)
+        except TypeError:
+            raise TypeError(f"{type(function).__name__} must be hashable to run on Dask "
+                            "(a dataclass needs eq=False or frozen=True)") from None
     with ExitStack() as stack:
         if plan.backend == "dask":
             stack.enter_context(_dask_backend(plan.scheduler))
