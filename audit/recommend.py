@@ -125,7 +125,8 @@ def choose_step_factor(basin_share: np.ndarray, median_iterations: np.ndarray,
     top = float(np.max(basin_share)) if basin_share.size else 0.0
     if top <= 0:
         return None, "no start reached a converged solution, so there is nothing to recommend"
-    contenders = np.argwhere(basin_share >= top - SHARE_TIE)
+    # A setting that never reached the best has no iterations to compare: it cannot tie.
+    contenders = np.argwhere((basin_share >= top - SHARE_TIE) & (basin_share > 0))
     keys = [(median_iterations[m, f], -step_factors[f], m) for m, f in contenders]
     m, f = (int(i) for i in contenders[min(range(len(keys)), key=keys.__getitem__)])
     if len(contenders) == 1:

@@ -68,7 +68,8 @@ class SolutionTolerance:
 
 @dataclass
 class Catalogue:
-    """Distinct solutions, lowest SSR first.
+    """Distinct solutions, lowest SSR first (or, after ``inside_first``, those within the
+    searched ranges first).
 
     Attributes:
         params: (k, n) representative end points.
@@ -145,3 +146,26 @@ def merge_catalogues(catalogues: list[Catalogue], tolerance: SolutionTolerance,
     count = np.concatenate([c.count for c in catalogues])
     merged, labels = cluster(params, ssr, tolerance, weight=count, limit=limit)
     return merged, np.split(labels, np.cumsum(sizes)[:-1])
+
+
+def inside_first(catalogue: Catalogue, inside: np.ndarray) -> tuple[Catalogue, np.ndarray]:
+    """The catalogue with the solutions marked ``inside`` (k,) first, each group by SSR.
+
+    Row 0 is then the reference: the lowest SSR within the ranges the user searched, even when
+    a lower one lies outside them (an aliased or mirrored parameter set, say).
+
+    Returns:
+        The reordered catalogue and (k,) the new row of every old row.
+    """
+    order = np.lexsort((catalogue.ssr, ~np.asarray(inside, dtype=bool)))
+    new_row = np.empty(len(order), dtype=np.int64)
+    new_row[order] = np.arange(len(order))
+    reordered = Catalogue(params=catalogue.params[order], ssr=catalogue.ssr[order], count=catalogue.count[order])
+    return reordered, new_row
+
+
+def relabel(labels: np.ndarray, new_row: np.ndarray) -> np.ndarray:
+    """Catalogue labels after ``inside_first``; ``UNCATALOGUED`` stays as it is."""
+    labels = np.asarray(labels)
+    return np.where(labels >= 0, new_row[np.maximum(labels, 0)], labels)
+

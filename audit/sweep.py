@@ -5,8 +5,8 @@ chunks of bounded size, mapped through ``parallel.map_chunks``; each finished ch
 at once in the chunk cache, so an interrupted or repeated sweep computes only what is missing.
 Then, reading the chunks back one at a time:
 
-1. the chunks' local solution catalogues are merged into distinct solutions; the lowest SSR is
-   the best one, the reference;
+1. the chunks' local solution catalogues are merged into distinct solutions; the one with the
+   lowest SSR inside the searched ranges is the best one, the reference;
 2. basin maps (2-D slices through the best fit) are swept the same way;
 3. fixed-size tallies give the share of each outcome per step factor, iteration percentiles,
    the safe starting region and the recommended step factor;
@@ -34,7 +34,7 @@ from .parallel import ParallelPlan, map_chunks
 from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
                         safe_regions)
 from .settings import nearest
-from .solutions import Catalogue, SolutionTolerance, merge_catalogues
+from .solutions import Catalogue, SolutionTolerance, inside_first, merge_catalogues, relabel
 from .starts import StartDesign, make_design, map_axis_values, map_design, search_space
 from .sweep_cases import CaseSelection, trace_cases
 from .sweep_chunk import FAILURE_KINDS, ChunkWork
@@ -162,7 +162,7 @@ class _Sweep:
         design_store = ChunkStore(self.cache, "design")
         design_spans = self._compute(self.design, design_store)
         design_catalogues = [_catalogue(design_store.load(i)) for i in range(len(design_spans))]
-        design_best, _ = merge_catalogues(design_catalogues, self.tolerance)
+        design_best, _ = self._merge(design_catalogues)
         # The maps are slices through the design's best fit (the scenario's start if none).
         base = design_best.params[0] if len(design_best) else self.scenario.start
         planes = []
@@ -172,7 +172,7 @@ class _Sweep:
             planes.append((plane, store, len(self._compute(plane, store))))
         catalogues = design_catalogues + [_catalogue(store.load(i)) for _, store, chunks in planes
                                           for i in range(chunks)]
-        merged, mappings = merge_catalogues(catalogues, self.tolerance)
+        merged, mappings = self._merge(catalogues)
         best_unit = (np.clip(self.space.to_unit(merged.params[0]), 0, 1) if len(merged)
                      else np.full(self.space.n_params, 0.5))
         tally = DesignTally(len(request.methods), len(request.step_factors), request.max_iterations, len(merged),
@@ -193,6 +193,17 @@ class _Sweep:
         cases = trace_cases(self.problem, selections, request.methods, np.array(request.step_factors),
                             request.tolerance, request.max_iterations)
         return self._result(tally, merged, design_best, best_unit, maps, cases)
+
+    def _merge(self, catalogues: list[Catalogue]) -> tuple[Catalogue, list[np.ndarray]]:
+        """Merge chunk catalogues, the solutions inside the searched ranges first."""
+        merged, mappings = merge_catalogues(catalogues, self.tolerance)
+        merged, new_row = inside_first(merged, self._inside(merged.params))
+        return merged, [relabel(labels, new_row) for labels in mappings]
+
+    def _inside(self, params: np.ndarray) -> np.ndarray:
+        """(k,) True where every parameter lies within its searched range."""
+        unit = self.space.to_unit(params)
+        return np.all((unit >= 0) & (unit <= 1), axis=-1)
 
     def _compute(self, design: StartDesign, store: ChunkStore) -> list[tuple[int, int]]:
         """Make sure every chunk of ``design`` is stored; compute the missing ones. Returns the spans."""
@@ -260,6 +271,7 @@ class _Sweep:
             tolerance=request.tolerance, max_iterations=request.max_iterations, counts=tally.counts, shares=shares,
             iterations_median=median, iterations_p90=p90, solution_params=merged.params, solution_ssr=merged.ssr,
             solution_shares=tally.solution_counts / starts, solution_level_with_best=level,
+            solution_inside=self._inside(merged.params),
             start=self.scenario.start, start_distance=start_distance, region_level=REGION_LEVEL,
             region_min_starts=REGION_MIN_STARTS, region_radius=radius, region_lower=lower, region_upper=upper,
             region_starts=inside, region_share=share_inside,
@@ -284,9 +296,17 @@ class _Sweep:
                 self.tolerance.ssr_relative * abs(design_best.ssr[0]) + self.tolerance.ssr_floor):
             notes.append("a basin map found a lower SSR than any design start; the maps are centred on the "
                          "design's best, so rerun with more design points")
-        if level.any():
-            notes.append(f"{int(level.sum())} other solution(s) have the best SSR with different parameters: "
-                         "the data may not determine the parameters (see the identifiability stage)")
+        inside = self._inside(merged.params)
+        outside_lower = ~inside & (merged.ssr < merged.ssr[0]) if len(merged) else inside
+        if np.any(outside_lower | (level & ~inside)):
+            notes.append(f"{int(np.sum(outside_lower | (level & ~inside)))} solution(s) outside the searched ranges "
+                         f"reach the best SSR or a lower one ({int(np.sum(outside_lower))} lower; see the solutions "
+                         "table): widen a range if they are physical, else they are aliases or mirror images of "
+                         "the reference")
+        if np.any(level & inside):
+            notes.append(f"{int(np.sum(level & inside))} other solution(s) inside the ranges have the best SSR with "
+                         "different parameters: the data may not determine the parameters (see the identifiability "
+                         "stage)")
         return notes
 
 

@@ -16,7 +16,7 @@ from .outcomes import MEANINGS, Outcome
 #: How a run ended once converged runs are split by solution; the keys of the figure style.
 CATEGORIES = ("best", "other", "diverged", "oscillating", "stalled", "singular", "model_error")
 CATEGORY_MEANINGS = {
-    "best": "converged to the best solution found (lowest residual sum of squares)",
+    "best": "converged to the best solution found (lowest residual sum of squares inside the searched ranges)",
     "other": "converged, but to another solution (a different local optimum)",
     **{outcome.label: MEANINGS[outcome] for outcome in Outcome if outcome != Outcome.CONVERGED},
 }
@@ -101,7 +101,9 @@ class SweepResult:
         solution_params: (S, n), solution_ssr: (S,): distinct solutions, lowest SSR first
             (row 0 is the best, the reference); solution_shares: (M, F, S) share of starts
             reaching each; solution_level_with_best: (S,) True where the SSR equals the best's
-            within tolerance although the parameters differ (a sign of non-identifiability).
+            within tolerance although the parameters differ (a sign of non-identifiability);
+            solution_inside: (S,) True where every parameter lies within its searched range
+            (the best is the lowest SSR among those; solutions outside follow them).
         start: (n,) the scenario's own starting values; start_distance: its distance from the
             best fit in unit-cube coordinates (largest over the parameters).
         region_radius: (M, F) half-width, in unit-cube coordinates, of the largest cube around
@@ -136,6 +138,7 @@ class SweepResult:
     solution_ssr: np.ndarray
     solution_shares: np.ndarray
     solution_level_with_best: np.ndarray
+    solution_inside: np.ndarray
     start: np.ndarray
     start_distance: float
     region_level: float
@@ -209,9 +212,10 @@ class SweepResult:
             "counts": self.counts, "shares": self.shares,
             "iterations_median": self.iterations_median, "iterations_p90": self.iterations_p90,
             "solutions": [{"params": dict(zip(self.names, params)), "ssr": ssr, "level_with_best": level,
-                           "shares": self.solution_shares[..., s]}
-                          for s, (params, ssr, level) in enumerate(zip(self.solution_params, self.solution_ssr,
-                                                                       self.solution_level_with_best))],
+                           "inside_ranges": inside, "shares": self.solution_shares[..., s]}
+                          for s, (params, ssr, level, inside) in enumerate(zip(
+                              self.solution_params, self.solution_ssr, self.solution_level_with_best,
+                              self.solution_inside))],
             "best": {"params": dict(zip(self.names, self.best_params)), "ssr": self.best_ssr},
             "recommendation": recommendation,
             "safe_region": {"level": self.region_level, "min_starts": self.region_min_starts,

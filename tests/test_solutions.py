@@ -4,7 +4,8 @@ from __future__ import annotations
 import numpy as np
 from scipy.cluster.hierarchy import fcluster, linkage
 
-from audit.solutions import UNCATALOGUED, SolutionTolerance, cluster, merge_catalogues
+from audit.recommend import choose_step_factor
+from audit.solutions import UNCATALOGUED, Catalogue, SolutionTolerance, cluster, inside_first, merge_catalogues, relabel
 
 TOLERANCE = SolutionTolerance(parameter_relative=1e-4, floor=np.array([1e-3, 1e-3]), ssr_relative=1e-6,
                               ssr_floor=1e-20)
@@ -51,3 +52,20 @@ def test_catalogue_limit_marks_the_rest_uncatalogued():
     catalogue, labels = cluster(params, np.arange(10.0), TOLERANCE, limit=4)
     assert len(catalogue) == 4
     np.testing.assert_array_equal(labels, [0, 1, 2, 3] + [UNCATALOGUED] * 6)
+
+
+def test_inside_first_reorders_and_relabels():
+    # The reference row is the lowest SSR among the solutions inside the ranges; labels follow.
+    catalogue = Catalogue(params=np.array([[0.0], [1.0], [2.0]]), ssr=np.array([1.0, 2.0, 3.0]),
+                          count=np.array([5, 6, 7]))
+    reordered, new_row = inside_first(catalogue, np.array([False, True, True]))
+    assert list(reordered.ssr) == [2.0, 3.0, 1.0] and list(reordered.count) == [6, 7, 5]
+    assert list(relabel(np.array([0, 1, 2, UNCATALOGUED]), new_row)) == [2, 0, 1, UNCATALOGUED]
+
+
+def test_recommendation_never_picks_a_setting_that_did_not_reach_the_best():
+    # Settings with no start reaching the best have no iterations to compare: they cannot tie.
+    share = np.array([[0.0, 0.003, 0.0]])
+    median = np.array([[np.nan, 38.0, np.nan]])
+    assert choose_step_factor(share, median, np.array([1.0, 0.5, 0.25]))[0] == (0, 1)
+

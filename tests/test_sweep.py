@@ -57,6 +57,25 @@ def test_grid_sweep_finds_both_optima_with_the_derived_outcome_of_every_start(tw
         assert found == expected, f"step factor {factor}"
 
 
+def test_reference_is_the_best_solution_inside_the_searched_ranges(write_scenario):
+    # With a searched only up to 1.5, the optimum at a = 2 (SSR 0) lies outside the ranges the
+    # user declared plausible: the reference becomes the other optimum (calculus, twin_optima.py),
+    # the lower one is listed as outside and named in a note, and the derived fates swap.
+    toml = twin.scenario_toml().replace(f"range = [{twin.A_RANGE[0]}, {twin.A_RANGE[1]}]",
+                                        f"range = [{twin.A_RANGE[0]}, 1.5]")
+    scenario, result = sweep(write_scenario(toml, model=twin.MODEL, data=twin.DATA))
+    np.testing.assert_allclose(result.solution_params[0], [twin.A_OTHER, 0.0], atol=1e-7)
+    np.testing.assert_allclose(result.solution_params[1], [2.0, 0.0], atol=1e-7)
+    assert list(result.solution_inside) == [True, False]
+    assert any("outside the searched ranges" in note for note in result.warnings)
+    swap = {"best": "other", "other": "best"}
+    for f, factor in enumerate(twin.STEP_FACTORS):
+        expected = {swap.get(label, label): count
+                    for label, count in expected_counts(scenario, "grid", 1024, factor).items()}
+        found = {label: int(result.counts[0, f, k]) for k, label in enumerate(CATEGORIES) if result.counts[0, f, k]}
+        assert found == expected, f"step factor {factor}"
+
+
 def test_grid_shares_match_the_derived_areas(twin_folder):
     _, result = sweep(twin_folder)
     k = 32  # 1024 = 32 × 32 grid points

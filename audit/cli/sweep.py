@@ -21,7 +21,8 @@ Does the fit depend on where it starts, or on the step factor? This command fits
 many starting guesses spread over the parameters' ranges (scenario.toml [parameters] range),
 each with every step factor, and sorts every run by how it ended:
 
-  best         converged to the best solution found (lowest residual sum of squares)
+  best         converged to the best solution found: the lowest residual sum of squares with
+               every parameter inside its range (lower ones outside are listed and noted)
   other        converged, but to another solution (a different local optimum)
   diverged     parameters or the residual sum of squares ran away
   oscillating  successive steps kept reversing without the fit improving
@@ -150,7 +151,7 @@ def _show_solutions(result: SweepResult) -> None:
         table.add_column(heading, justify="right")
     shown = min(len(result.solution_ssr), 8)
     for s in range(shown):
-        label = "best" if s == 0 else str(s + 1)
+        label = ("best" if s == 0 else str(s + 1)) + ("" if result.solution_inside[s] else " (outside ranges)")
         table.add_row(label, number(result.solution_ssr[s], 8), *(number(v, 8) for v in result.solution_params[s]),
                       f"{np.max(result.solution_shares[..., s]):.1%}")
     out.print(table)
