@@ -36,8 +36,10 @@ OUTCOME_MARKERS: dict[str, str] = {
     "model_error": "X",
 }
 
-#: A qualitative sequence for distinct solutions, dark to light, for maps with several optima.
-SOLUTION_COLOURS = ("#1b3a5c", "#3f7f6e", "#7fb069", "#e6aa68", "#ca3c25", "#6c4f77", "#a5a5a5")
+#: A qualitative sequence for distinct solutions, dark to light, for maps with several optima:
+#: blues and greens only, so that no solution is mistaken for a failure kind's red, orange or
+#: yellow above.
+SOLUTION_COLOURS = ("#1b3a5c", "#3f7f6e", "#7fb069", "#5fa8d3", "#b9d7a8", "#6c4f77", "#a5a5a5")
 
 #: Interval colours: asymptotic (dashed) vs resampled / profile (solid).
 ASYMPTOTIC = "#555555"
