@@ -369,7 +369,7 @@ def test_result_is_strict_json_and_figures_are_written(tmp_path):
     assert payload["columns"][2]["diagnosis"]["kind"] == "sign_error"
     assert payload["consequences"]["jacobians"][0].startswith("numeric")
     paths = write_figures(audit, tmp_path / "figures")
-    assert {path.name for path in paths} >= {"derivatives_columns.png", "derivatives_points.png"}
+    assert {path.name for path in paths} >= {"derivatives-columns.png", "derivatives-points.png"}
     assert all(path.stat().st_size > 10_000 for path in paths)
 
 
@@ -380,7 +380,7 @@ def test_command_exit_statuses_and_json(tmp_path, capsys):
     assert main(["derivatives", str(planted), "--points", "3", "--json", "-o", str(tmp_path / "out")]) == 1
     payload = json.loads(capsys.readouterr().out)
     assert [column["verdict"] for column in payload["columns"]] == ["agrees", "agrees", "wrong"]
-    assert (tmp_path / "out" / "figures" / "derivatives_columns.png").is_file()
+    assert (tmp_path / "out" / "figures" / "derivatives-columns.png").is_file()
     assert main(["derivatives", str(BUNDLED), "--points", "-1"]) == 2
     assert main(["derivatives", str(tmp_path / "missing")]) == 2
 

@@ -275,8 +275,8 @@ def test_identify_command_writes_json_and_figures(tmp_path, capsys):
     assert saved == printed and printed["flagged"] is False
     assert len(printed["profiles"]["parameters"][0]["values"]) == 15
     assert {path.name for path in (tmp_path / "figures").glob("*.png")} == {
-        "identifiability_profiles.png", "identifiability_correlation.png",
-        "identifiability_weak_directions.png", "identifiability_collinearity.png"}
+        "identifiability-profiles.png", "identifiability-correlation.png",
+        "identifiability-weak-directions.png", "identifiability-collinearity.png"}
 
 
 def test_identify_command_flags_a_product_model_and_rejects_bad_points(write_scenario, capsys):

@@ -1,10 +1,10 @@
 """Figures of the derivative audit, drawn from a ``DerivativeAudit`` only.
 
-- ``derivatives_columns``: one panel pair per parameter at the point where that column is worst:
+- ``derivatives-columns``: one panel pair per parameter at the point where that column is worst:
   the true derivative (line) with the hand-derived values (open circles) over the observations,
   and below it their difference as a share of the column's size, inside the grey tolerance band.
   A wrong column shows at a glance: circles off the line, differences outside the band.
-- ``derivatives_points``: every check point × every parameter, shaded by the relative error
+- ``derivatives-points``: every check point × every parameter, shaded by the relative error
   (digits lost), marked ✗ with the share of observations that disagree, hatched where the
   numeric reference is unreliable. A column wrong at some points only shows as a broken stripe,
   one wrong at some observations only as shares below 100 %. Without a hand-derived Jacobian it
@@ -54,7 +54,7 @@ def _columns(result: DerivativeAudit, folder: Path) -> list[Path]:
     reference = "exact (from the formula)" if result.reference == "exact" else "numeric (numdifftools)"
     figure.suptitle(f"Hand-derived partial derivatives against the {reference} ones, at each column's worst point",
                     fontsize=11)
-    return save(figure, folder, "derivatives_columns")
+    return save(figure, folder, "derivatives-columns")
 
 
 def _column_panel(result: DerivativeAudit, j: int, upper, lower) -> None:
@@ -154,4 +154,4 @@ def _points(result: DerivativeAudit, folder: Path) -> list[Path]:
     colourbar = figure.colorbar(image, ax=axes, shrink=0.8)
     colourbar.set_label("log10(largest |difference| / column size)", fontsize=8)
     colourbar.ax.axhline(math.log10(line), color=WRONG_COLOUR, linewidth=2)
-    return save(figure, folder, "derivatives_points")
+    return save(figure, folder, "derivatives-points")

@@ -82,7 +82,7 @@ def _profiles(result: Identifiability, folder: Path) -> list[Path]:
     figure.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncol=5, fontsize=8,
                   frameon=False)
     figure.suptitle("Profile likelihood: SSR with each parameter fixed, the others refitted", fontsize=11)
-    return save(figure, folder, "identifiability_profiles")
+    return save(figure, folder, "identifiability-profiles")
 
 
 def _profile_interval(axis, profiles, j: int, values: np.ndarray) -> None:
@@ -123,7 +123,7 @@ def _correlation(result: Identifiability, folder: Path) -> list[Path]:
     if not np.isfinite(correlation).all():
         title += "\n(— : undefined, the Jacobian is singular)"
     axis.set_title(title, fontsize=11)
-    return save(figure, folder, "identifiability_correlation")
+    return save(figure, folder, "identifiability-correlation")
 
 
 def _weak_directions(result: Identifiability, folder: Path) -> list[Path]:
@@ -145,7 +145,7 @@ def _weak_directions(result: Identifiability, folder: Path) -> list[Path]:
         axis.set_title("\n".join(textwrap.wrap(unbroken, 46)), fontsize=8.5)
     figure.suptitle(f"Weakest parameter combinations\n(scaled condition number {result.condition_scaled:.3g})",
                     fontsize=11)
-    return save(figure, folder, "identifiability_weak_directions")
+    return save(figure, folder, "identifiability-weak-directions")
 
 
 def _collinearity(result: Identifiability, folder: Path) -> list[Path]:
@@ -180,4 +180,4 @@ def _collinearity(result: Identifiability, folder: Path) -> list[Path]:
                   xytext=(0, 7), ha="center", fontsize=8)
     axis.legend(fontsize=8, frameon=False)
     axis.set_title("Collinearity index of every parameter subset", fontsize=11)
-    return save(figure, folder, "identifiability_collinearity")
+    return save(figure, folder, "identifiability-collinearity")
