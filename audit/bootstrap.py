@@ -27,7 +27,7 @@ from .outcomes import Outcome
 from .parallel import ParallelPlan, map_chunks
 from .problem import Problem
 from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale
-from .resampling import Resample, Scheme, build_scheme, leave_one_out
+from .resampling import Scheme, build_scheme, leave_one_out
 from .scenario import Scenario
 
 #: Refits per chunk: up to MAX_CHUNK (large enough for the batched solver to amortise numpy's
@@ -167,7 +167,7 @@ class _Refitter:
         starts = np.tile(self.best, (chunk.count, 1))
         fit = fit_batch(problem, starts, self.refit.step_factor, y=data.y, x=data.x, weights=data.weights,
                         method=self.refit.method, tol=self.refit.tolerance, max_iter=self.refit.max_iterations)
-        return _ChunkFits(params=fit.params, ssr=fit.ssr, ssr_at_best=_ssr(problem, starts, data),
+        return _ChunkFits(params=fit.params, ssr=fit.ssr, ssr_at_best=problem.ssr(starts, data.x, data.y, data.weights),
                           outcome=fit.outcome, iterations=fit.iterations)
 
 
@@ -236,15 +236,6 @@ def chunk_size(problem: Problem) -> int:
 def _chunks(kind: str, total: int, size: int) -> list[_Chunk]:
     return [_Chunk(kind=kind, index=k, first=first, count=min(size, total - first))
             for k, first in enumerate(range(0, total, size))]
-
-
-def _ssr(problem: Problem, params: np.ndarray, data: Resample) -> np.ndarray:
-    """(B,) weighted residual sum of squares of each run's data at its ``params``."""
-    weighted = data.y - problem.predict(params, data.x)
-    weights = data.weights if data.weights is not None else problem.weights
-    if weights is not None:
-        weighted = weighted * np.sqrt(weights)
-    return np.einsum("bm,bm->b", weighted, weighted)
 
 
 def _classified(pieces: list[_ChunkFits], best: np.ndarray, scale: np.ndarray) -> ReplicateFits:

@@ -69,15 +69,14 @@ class Estimates:
         })
 
 
-def inverse_information(derivatives: np.ndarray, sqrt_weights: np.ndarray | None) -> tuple[np.ndarray, float]:
-    """(JᵀWJ)⁻¹ and the scaled condition number, from (n, m) unweighted derivative rows.
+def inverse_information(weighted: np.ndarray) -> tuple[np.ndarray, float]:
+    """(JᵀWJ)⁻¹ and the scaled condition number, from (n, m) weighted derivative rows.
 
     Columns are scaled to unit norm before the SVD so that parameters of very different sizes
     do not cost digits; the inverse is unscaled afterwards. A zero column, or a Jacobian that has
     lost rank (the engine's ``RANK_TOLERANCE``), gives an all-NaN inverse and an infinite
     condition number: no standard error is better than a meaningless huge one.
     """
-    weighted = derivatives if sqrt_weights is None else derivatives * sqrt_weights
     norms = np.linalg.norm(weighted, axis=1)
     if not np.all(norms > 0) or not np.all(np.isfinite(weighted)):
         return np.full((len(norms), len(norms)), np.nan), np.inf
@@ -108,12 +107,8 @@ def estimate(problem: Problem, params: np.ndarray, confidence: float = 0.95) -> 
         raise InputError(f"{m} observations leave no degrees of freedom for {n} parameters")
     # Points far from convergence (a diverged run) may overflow; they give inf/NaN, not warnings.
     with np.errstate(all="ignore"):
-        residual = problem.y - problem.predict(params[None, :])[0]
-        if problem.sqrt_weights is not None:
-            residual = residual * problem.sqrt_weights
-        ssr = float(residual @ residual)
-        derivatives = problem.derivatives(params[None, :])[0]
-        inverse, condition = inverse_information(derivatives, problem.sqrt_weights)
+        ssr = float(problem.ssr(params[None, :])[0])
+        inverse, condition = inverse_information(problem.weighted_derivatives(params[None, :])[0])
         variance = ssr / dof
         covariance = variance * inverse
         std_errors = np.sqrt(np.diag(covariance))

@@ -198,9 +198,7 @@ def rank_check(problem: Problem, params: np.ndarray, lower: np.ndarray, upper: n
 
 def _rank_ratio(problem: Problem, params: np.ndarray) -> np.ndarray:
     """(B,) smallest over largest singular value of the unit-column weighted Jacobian at each row."""
-    jacobian = np.swapaxes(problem.derivatives(params), 1, 2)                     # (B, m, n)
-    if problem.sqrt_weights is not None:
-        jacobian = jacobian * problem.sqrt_weights[:, None]
+    jacobian = np.swapaxes(problem.weighted_derivatives(params), 1, 2)            # (B, m, n)
     finite = np.isfinite(jacobian).all(axis=(1, 2))
     norms = np.linalg.norm(np.where(finite[:, None, None], jacobian, 0.0), axis=1)
     unit = np.where(finite[:, None, None], jacobian, 0.0) / np.where(norms > 0, norms, 1.0)[:, None, :]
@@ -233,9 +231,7 @@ def analyse(problem: Problem, params: np.ndarray, *, lower: np.ndarray, upper: n
     params = np.asarray(params, dtype=float)
     names = problem.names
     estimates = estimate(problem, params, settings.confidence)
-    jacobian = problem.derivatives(params[None, :])[0].T
-    if problem.sqrt_weights is not None:
-        jacobian = jacobian * problem.sqrt_weights[:, None]
+    jacobian = problem.weighted_derivatives(params[None, :])[0].T
     spectrum = singular_values(jacobian)
     weak = weak_rows(spectrum["scaled"])
     weak_text = [describe(spectrum["directions"][row], spectrum["scaled"][row], spectrum["scaled"][0], names)

@@ -139,6 +139,31 @@ class Problem:
         x = self.x if x is None else x
         return _isolate_failures(self._predict_unchecked, params, x, self, None)
 
+    def residuals(self, params: np.ndarray, x: np.ndarray | None = None, y: np.ndarray | None = None,
+                  weights: np.ndarray | None = None) -> np.ndarray:
+        """(B, m) weighted residuals sqrt(w)·(y − f) at ``params`` (B, n).
+
+        ``x``, ``y`` and ``weights`` default to the problem's own and may be given per run, as
+        for ``fit_batch``. Non-finite model values give non-finite residuals, never warnings.
+        """
+        y = self.y if y is None else y
+        sqrt_weights = self.sqrt_weights if weights is None else np.sqrt(weights)
+        with np.errstate(all="ignore"):
+            weighted = y - self.predict(params, x)
+            return weighted if sqrt_weights is None else weighted * sqrt_weights
+
+    def ssr(self, params: np.ndarray, x: np.ndarray | None = None, y: np.ndarray | None = None,
+            weights: np.ndarray | None = None) -> np.ndarray:
+        """(B,) weighted residual sum of squares at ``params`` (B, n); arguments as ``residuals``."""
+        weighted = self.residuals(params, x, y, weights)
+        with np.errstate(all="ignore"):
+            return np.einsum("bm,bm->b", weighted, weighted)
+
+    def weighted_derivatives(self, params: np.ndarray) -> np.ndarray:
+        """(B, n, m) derivative rows times sqrt(w): the weighted Jacobian, transposed."""
+        rows = self.derivatives(params)
+        return rows if self.sqrt_weights is None else rows * self.sqrt_weights
+
     def derivatives(
         self,
         params: np.ndarray,

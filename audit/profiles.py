@@ -247,7 +247,7 @@ def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, walk: Refi
         start = last_good[rows].copy()
         start[np.arange(len(rows)), pinned[rows]] = value
         if n == 1:
-            found, found_ssr, codes = start, _ssr(problem, start), np.full(len(rows), Outcome.CONVERGED)
+            found, found_ssr, codes = start, problem.ssr(start), np.full(len(rows), Outcome.CONVERGED)
         else:
             found, found_ssr, codes = _refit(problem, start, pinned[rows], walk)
         settled = codes == Outcome.CONVERGED
@@ -286,14 +286,6 @@ def _refit(problem: Problem, start: np.ndarray, pinned: np.ndarray,
         found[retry] = second.params
         ssr[retry] = second.ssr
     return found, ssr, codes
-
-
-def _ssr(problem: Problem, params: np.ndarray) -> np.ndarray:
-    """(B,) weighted SSR at ``params`` (B, n), for one-parameter problems (nothing to refit)."""
-    residual = problem.y - problem.predict(params)
-    if problem.sqrt_weights is not None:
-        residual = residual * problem.sqrt_weights
-    return np.einsum("bm,bm->b", residual, residual)
 
 
 def _crossings(estimate: np.ndarray, ssr_min: float, threshold: float, grid: ProfileGrid,

@@ -155,8 +155,7 @@ def leverages(problem: Problem, params: np.ndarray) -> np.ndarray:
     matrix does not change under column scaling). A leverage of 1 (an observation that alone
     fixes a parameter) is capped just below 1, since its residual is zero anyway.
     """
-    derivatives = problem.derivatives(np.asarray(params, dtype=float)[None, :])[0]     # (n, m)
-    weighted = derivatives if problem.sqrt_weights is None else derivatives * problem.sqrt_weights
+    weighted = problem.weighted_derivatives(np.asarray(params, dtype=float)[None, :])[0]     # (n, m)
     norms = np.linalg.norm(weighted, axis=1)
     if not np.all(np.isfinite(weighted)) or not np.all(norms > 0):
         raise InputError("leverages need a finite Jacobian with no zero column at the best fit")

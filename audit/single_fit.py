@@ -78,11 +78,8 @@ def fit_once(problem: Problem, start: np.ndarray, *, step_factor: float = 1.0, m
     iterates = trail[np.isfinite(trail).all(axis=1)]
     if not np.array_equal(iterates[-1], result.params[0], equal_nan=True):
         iterates = np.vstack([iterates, result.params[0]])
-    residual = problem.y - problem.predict(iterates)
-    if problem.sqrt_weights is not None:
-        residual = residual * problem.sqrt_weights
+    ssr = problem.ssr(iterates)
     with np.errstate(all="ignore"):
-        ssr = np.einsum("km,km->k", residual, residual)
         floor = FLOOR_FRACTION * (problem.typical if problem.typical is not None
                                   else np.where(start != 0, np.abs(start), 1.0))
         moves = np.abs(np.diff(iterates, axis=0)) / np.maximum(np.abs(iterates[1:]), floor)

@@ -176,8 +176,7 @@ VERDICT_MEANINGS = {
 
 def lre_ssr_at_certified(fitted: ReferenceModel) -> float:
     """The SSR LRE double precision reaches at the certified parameters themselves."""
-    residual = fitted.problem.y - fitted.problem.predict(fitted.reference.certified[None, :])[0]
-    return float(log_relative_error(residual @ residual, fitted.reference.ssr))
+    return float(log_relative_error(fitted.problem.ssr(fitted.reference.certified[None, :])[0], fitted.reference.ssr))
 
 
 def _std_errors(problem: Problem, point: np.ndarray) -> np.ndarray:
