@@ -8,8 +8,8 @@ equations square the condition number, so runs whose Cholesky pivots show a scal
 above about 1e4 are solved again from a QR factorisation of [J | r] followed by an SVD of the
 small triangular factor; that SVD also decides whether the Jacobian has lost rank.
 
-One factorisation serves the Gauss-Newton step and any number of damped
-(Levenberg-Marquardt) steps, so a rejected trial step costs no new factorisation.
+The same pieces feed the trust-region (Levenberg-Marquardt) steps of ``trust_region``, so a
+rejected trial step costs no new factorisation.
 """
 from __future__ import annotations
 
@@ -36,6 +36,7 @@ class StepSystem:
         gram: (A, c, c) Gram matrix of the column-scaled Jacobian (unit diagonal).
         gradient: (A, c) scaled Jacobian transposed times the weighted residual.
         emphasis: (A, c) relative damping of each scaled parameter (ones: plain Marquardt).
+        factor: (A, c, c) Cholesky factor of ``gram`` (used for the runs not solved carefully).
         broken: (A,) True where the derivatives or residuals are not finite.
         rank_deficient: (A,) True where the scaled Jacobian has lost rank.
         careful: (A,) True where the QR/SVD path replaces the normal equations.
@@ -49,6 +50,7 @@ class StepSystem:
     gram: np.ndarray
     gradient: np.ndarray
     emphasis: np.ndarray
+    factor: np.ndarray
     broken: np.ndarray
     rank_deficient: np.ndarray
     careful: np.ndarray
@@ -92,7 +94,7 @@ class StepSystem:
         gram = np.where(broken[:, None, None], np.eye(width), raw_gram / (norms[:, :, None] * norms[:, None, :]))
         gradient = np.where(broken[:, None], 0.0, raw_gradient / norms)
         emphasis = np.ones((count, width)) if norm_memory is None else (np.maximum(norm_memory, norms) / norms) ** 2
-        _, pivots = cholesky_batch(gram)
+        factor, pivots = cholesky_batch(gram)
         careful = (pivots.min(axis=1) < PIVOT_TOLERANCE) & ~dead_column.any(axis=1) & ~broken
         rank_deficient = dead_column.any(axis=1) & ~broken
         scaled = np.stack([np.broadcast_to(row, residual.shape)[careful] for row in rows], axis=1)
@@ -104,18 +106,19 @@ class StepSystem:
                                      _diagonal(held[careful].astype(float))], axis=2)
             residual = np.concatenate([residual, np.zeros((count, width))], axis=1)
         triangle, projected = _triangular_factor(scaled, residual[careful])
-        values = np.linalg.svd(triangle, compute_uv=False) if len(triangle) else np.empty((0, width))
-        rank_deficient[careful] = values[:, -1] <= RANK_TOLERANCE * values[:, 0]
         left, values, right = _svd(triangle / np.sqrt(emphasis[careful])[:, None, :])
+        # Rank is judged on unit columns; with damping emphasis that needs its own SVD.
+        unit_values = values if norm_memory is None else _svd(triangle)[1]
+        rank_deficient[careful] = unit_values[:, -1] <= RANK_TOLERANCE * unit_values[:, 0]
         free_columns = np.ones((count, width)) if held is None else (~held).astype(float)
-        return cls(norms, gram, gradient, emphasis, broken, rank_deficient, careful, left, values, right, projected,
-                   free_columns)
+        return cls(norms, gram, gradient, emphasis, factor, broken, rank_deficient, careful, left, values, right,
+                   projected, free_columns)
 
     def restricted(self, keep: np.ndarray) -> "StepSystem":
         """The same system for the runs in ``keep`` only."""
         careful_keep = keep[self.careful]
         return StepSystem(
-            self.column_norms[keep], self.gram[keep], self.gradient[keep], self.emphasis[keep],
+            self.column_norms[keep], self.gram[keep], self.gradient[keep], self.emphasis[keep], self.factor[keep],
             self.broken[keep], self.rank_deficient[keep], self.careful[keep],
             self.left[careful_keep], self.singular_values[careful_keep],
             self.right[careful_keep], self.projected[careful_keep], self.free_columns[keep],
@@ -123,39 +126,18 @@ class StepSystem:
 
     def gauss_newton(self) -> np.ndarray:
         """(A, c) Gauss-Newton steps in parameter units; NaN rows where rank was lost."""
-        return self.damped(np.zeros(self.gram.shape[0]))
-
-    def damped(self, damping: np.ndarray) -> np.ndarray:
-        """(A, c) steps solving (JsᵀJs + damping·diag(emphasis))·δ = Jsᵀr, in parameter units.
-
-        ``damping`` (A,) is the Levenberg-Marquardt parameter of the scaled problem; 0 gives the
-        Gauss-Newton step. Rows of rank-deficient runs with zero damping are NaN.
-        """
         count, width = self.gradient.shape
         steps = np.full((count, width), np.nan)
-        fast = ~self.careful & ~(self.rank_deficient & (damping <= 0))
+        fast = ~self.careful & ~self.rank_deficient
         if fast.any():
-            shifted = self.gram[fast] + damping[fast, None, None] * _diagonal(self.emphasis[fast])
-            factor, _ = cholesky_batch(shifted)
-            steps[fast] = cholesky_solve(factor, self.gradient[fast])
+            steps[fast] = cholesky_solve(self.factor[fast], self.gradient[fast])
         if self.careful.any():
-            values = self.singular_values
-            mu = damping[self.careful][:, None]
             with np.errstate(divide="ignore", invalid="ignore"):
-                filtered = values / (values**2 + mu)
-            coefficients = filtered * np.einsum("aji,aj->ai", self.left, self.projected)
-            careful_steps = np.einsum("aij,ai->aj", self.right, coefficients)
-            careful_steps /= np.sqrt(self.emphasis[self.careful])
-            lost = self.rank_deficient[self.careful] & (damping[self.careful] <= 0)
-            careful_steps[lost] = np.nan
+                coefficients = np.einsum("aji,aj->ai", self.left, self.projected) / self.singular_values
+            careful_steps = np.einsum("aij,ai->aj", self.right, coefficients) / np.sqrt(self.emphasis[self.careful])
+            careful_steps[self.rank_deficient[self.careful]] = np.nan
             steps[self.careful] = careful_steps
         return steps / self.column_norms * self.free_columns
-
-    def predicted_reduction(self, move: np.ndarray) -> np.ndarray:
-        """(A,) decrease of the SSR that the linear model predicts for ``move`` (A, c)."""
-        scaled = move * self.column_norms
-        curvature = np.einsum("ai,aij,aj->a", scaled, self.gram, scaled)
-        return 2 * np.einsum("ai,ai->a", scaled, self.gradient) - curvature
 
 
 def _row_products(first: np.ndarray, second: np.ndarray, count: int) -> np.ndarray:
