@@ -182,7 +182,6 @@ def _validated_runs(problem, starts, step_factor, y, x, weights, free, method, t
         raise InputError(f"free must be {n} booleans, or ({count}, {n}) for each run, with at least one True per run")
     columns = np.flatnonzero(free.any(axis=0) if free.ndim == 2 else free)
     held = None if free.ndim == 1 or free[:, columns].all() else ~free[:, columns]
-    typical = problem.typical if problem.typical is not None else np.where(starts != 0, np.abs(starts), 1.0)
-    typical = np.broadcast_to(typical, starts.shape)
+    typical = problem.typical_magnitude(starts)
     return Runs(starts=starts, step_factor=alpha, y=y, x=x, sqrt_weights=sqrt_weights,
                 free=columns, held=held, typical=typical)

@@ -240,7 +240,7 @@ def analyse(problem: Problem, params: np.ndarray, *, lower: np.ndarray, upper: n
     collinearity = collinearity_indices(jacobian, names, settings.collinearity_limit)
     rank = rank_check(problem, params, lower, upper, log_axis, settings.random_points,
                       np.random.default_rng(settings.seed))
-    typical = problem.typical if problem.typical is not None else np.where(params != 0, np.abs(params), 1.0)
+    typical = problem.typical_magnitude(params)
     steps = max(2, (settings.profile_points - 1) // 2)
     grid = plan_grid(params, estimates.t_quantile * estimates.std_errors, lower, upper, steps,
                      settings.profile_reach, fallback=np.maximum(np.abs(params), typical))

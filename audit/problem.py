@@ -97,6 +97,17 @@ class Problem:
     def n_obs(self) -> int:
         return self.y.shape[0]
 
+    def typical_magnitude(self, params: np.ndarray) -> np.ndarray:
+        """Typical magnitude of each parameter, shaped like ``params`` (..., n).
+
+        The problem's own ``typical`` when set (scenarios set it from the ranges); otherwise the
+        size of ``params`` themselves, 1 where a value is 0.
+        """
+        params = np.asarray(params, dtype=float)
+        if self.typical is not None:
+            return np.broadcast_to(self.typical, params.shape)
+        return np.where(params != 0, np.abs(params), 1.0)
+
     @property
     def has_jacobian(self) -> bool:
         return self.jacobian is not None

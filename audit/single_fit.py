@@ -80,8 +80,7 @@ def fit_once(problem: Problem, start: np.ndarray, *, step_factor: float = 1.0, m
         iterates = np.vstack([iterates, result.params[0]])
     ssr = problem.ssr(iterates)
     with np.errstate(all="ignore"):
-        floor = FLOOR_FRACTION * (problem.typical if problem.typical is not None
-                                  else np.where(start != 0, np.abs(start), 1.0))
+        floor = FLOOR_FRACTION * problem.typical_magnitude(start)
         moves = np.abs(np.diff(iterates, axis=0)) / np.maximum(np.abs(iterates[1:]), floor)
     change = np.concatenate([[np.nan], moves.max(axis=1) if len(moves) else []])
     outcome = Outcome(int(result.outcome[0]))
