@@ -14,10 +14,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .engine import fit_batch
 from .problem import Problem
 from .scenario import Parameter
 from .settings import SolverSettings
+from .single_fit import best_from_start
 
 #: Half-width of the neighbourhood of a start without a range, as a fraction of its typical
 #: magnitude (linear axis); on a log axis the start is multiplied by 2**u, u in [−1, 1].
@@ -67,20 +67,10 @@ def best_fit(problem: Problem, start: np.ndarray, solver: SolverSettings) -> np.
     """(n,) the lowest-SSR converged fit from ``start``, or None when no run converges.
 
     The fit uses central differences, not the hand-derived Jacobian under audit, so that a wrong
-    derivative cannot move the point at which it is judged. All the scenario's step factors run
-    in one batch with its method; Levenberg-Marquardt is the fallback.
+    derivative cannot move the point at which it is judged.
     """
-    numeric = dataclasses.replace(problem, jacobian=None)
-    factors = np.array(solver.step_factors)
-    attempts = [(solver.method, factors), ("lm", np.ones(1))]
-    for method, step_factor in attempts:
-        starts = np.tile(start, (len(step_factor), 1))
-        fits = fit_batch(numeric, starts, step_factor, method=method, tol=solver.tolerance,
-                         max_iter=solver.max_iterations)
-        if fits.converged.any():
-            ssr = np.where(fits.converged, fits.ssr, np.inf)
-            return fits.params[int(np.argmin(ssr))]
-    return None
+    found = best_from_start(dataclasses.replace(problem, jacobian=None), start, solver)
+    return None if found is None else found[0]
 
 
 def check_points(problem: Problem, parameters: tuple[Parameter, ...], solver: SolverSettings,

@@ -22,16 +22,16 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .collinearity import Collinearity, collinearity_indices
-from .engine import RefitSettings, fit_batch
+from .engine import RefitSettings
 from .errors import InputError
 from .estimates import Estimates, estimate
 from .jsonable import jsonable
 from .linsolve import RANK_TOLERANCE
-from .outcomes import Outcome
 from .parallel import ParallelPlan
 from .problem import Problem
 from .profiles import SIDE_STATUS, Profiles, plan_grid, profile_all
 from .settings import IdentifiabilitySettings, SolverSettings
+from .single_fit import best_from_start
 from .weak_directions import WEAK_INDEX, condition_indices, describe, singular_values, weak_rows
 
 
@@ -148,11 +148,8 @@ class Identifiability:
 
 
 def best_fit(problem: Problem, start: np.ndarray, solver: SolverSettings) -> tuple[np.ndarray, str]:
-    """The best fit reachable from ``start``: every step factor with Gauss-Newton, and Levenberg-Marquardt.
-
-    The converged run with the smallest SSR wins; failing that, a Levenberg-Marquardt run that
-    settled where the Jacobian lost rank (the floor of a valley of a structurally
-    non-identifiable model).
+    """The best fit reachable from ``start`` (``single_fit.best_from_start``), a settled
+    Levenberg-Marquardt run on a lost rank included.
 
     Returns:
         (params (n,), outcome label).
@@ -160,20 +157,11 @@ def best_fit(problem: Problem, start: np.ndarray, solver: SolverSettings) -> tup
     Raises:
         InputError: when no run converged or settled.
     """
-    steps = np.array([*solver.step_factors, 1.0])
-    starts = np.broadcast_to(np.asarray(start, dtype=float), (len(steps), problem.n_params))
-    options = dict(tol=solver.tolerance, max_iter=solver.max_iterations)
-    gauss = fit_batch(problem, starts[:-1], steps[:-1], method="gn", **options)
-    damped = fit_batch(problem, starts[-1:], 1.0, method="lm", **options)
-    params = np.vstack([gauss.params, damped.params])
-    ssr = np.concatenate([gauss.ssr, damped.ssr])
-    outcome = np.concatenate([gauss.outcome, damped.outcome])
-    for usable in (outcome == Outcome.CONVERGED, (outcome == Outcome.SINGULAR) & (np.arange(len(steps)) == len(steps) - 1)):
-        if usable.any():
-            winner = np.flatnonzero(usable)[np.argmin(ssr[usable])]
-            return params[winner], Outcome(int(outcome[winner])).label
-    raise InputError("no fit from the scenario's starting values converged; "
-                     "find a working start first (fitaudit fit) before judging identifiability")
+    found = best_from_start(problem, start, solver, accept_lost_rank=True)
+    if found is None:
+        raise InputError("no fit from the scenario's starting values converged; "
+                         "find a working start first (fitaudit fit) before judging identifiability")
+    return found[0], found[1].label
 
 
 def rank_check(problem: Problem, params: np.ndarray, lower: np.ndarray, upper: np.ndarray, log_axis: np.ndarray,

@@ -2,7 +2,8 @@
 
 This is what ``fitaudit fit`` shows: the engine is run on a batch of one, keeping every iterate,
 and the residual sum of squares and largest scaled change of each iterate are recomputed from
-that history so the trace shows exactly what the solver did.
+that history so the trace shows exactly what the solver did. ``best_from_start`` is the fit the
+local stages (derivative check points, identifiability) start from when no sweep gave one.
 """
 from __future__ import annotations
 
@@ -15,6 +16,7 @@ from .estimates import Estimates, estimate
 from .jsonable import jsonable
 from .outcomes import Outcome
 from .problem import FLOOR_FRACTION, Problem
+from .settings import SolverSettings
 
 
 @dataclass
@@ -89,3 +91,33 @@ def fit_once(problem: Problem, start: np.ndarray, *, step_factor: float = 1.0, m
         estimates = estimate(problem, result.params[0], confidence)
     return SingleFit(names=problem.names, method=method, step_factor=float(step_factor), start=start,
                      iterates=iterates, ssr=ssr, max_rel_change=change, outcome=outcome, estimates=estimates)
+
+
+def best_from_start(problem: Problem, start: np.ndarray, solver: SolverSettings,
+                    accept_lost_rank: bool = False) -> tuple[np.ndarray, Outcome] | None:
+    """The lowest-SSR converged fit from ``start`` (n,), or None when nothing converges.
+
+    Every step factor of ``solver`` runs with its method, plus one Levenberg-Marquardt run, all
+    from the same start. With ``accept_lost_rank``, a Levenberg-Marquardt run that settled where
+    the Jacobian lost rank (the floor of the valley of a structurally non-identifiable model)
+    is taken when nothing converged.
+
+    Returns:
+        (params (n,), outcome) of the chosen run, or None.
+    """
+    start = np.asarray(start, dtype=float)
+    factors = np.array(solver.step_factors)
+    options = dict(tol=solver.tolerance, max_iter=solver.max_iterations)
+    stepped = fit_batch(problem, np.tile(start, (len(factors), 1)), factors, method=solver.method, **options)
+    damped = fit_batch(problem, start[None, :], 1.0, method="lm", **options)
+    params = np.vstack([stepped.params, damped.params])
+    ssr = np.concatenate([stepped.ssr, damped.ssr])
+    outcome = np.concatenate([stepped.outcome, damped.outcome])
+    usable = outcome == Outcome.CONVERGED
+    if not usable.any() and accept_lost_rank:
+        usable = (outcome == Outcome.SINGULAR) & (np.arange(len(outcome)) == len(outcome) - 1)
+    if not usable.any():
+        return None
+    winner = np.flatnonzero(usable)[np.argmin(ssr[usable])]
+    return params[winner], Outcome(int(outcome[winner]))
+
