@@ -123,4 +123,3 @@ def _mixed(problem: Problem, numeric: Problem, column: int) -> Problem:
         return rows
 
     return dataclasses.replace(problem, jacobian=jacobian)
-

@@ -120,4 +120,3 @@ def best_from_start(problem: Problem, start: np.ndarray, solver: SolverSettings,
         return None
     winner = np.flatnonzero(usable)[np.argmin(ssr[usable])]
     return params[winner], Outcome(int(outcome[winner]))
-

@@ -168,4 +168,3 @@ def relabel(labels: np.ndarray, new_row: np.ndarray) -> np.ndarray:
     """Catalogue labels after ``inside_first``; ``UNCATALOGUED`` stays as it is."""
     labels = np.asarray(labels)
     return np.where(labels >= 0, new_row[np.maximum(labels, 0)], labels)
-

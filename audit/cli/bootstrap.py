@@ -47,6 +47,7 @@ EXAMPLES = """\
   fitaudit bootstrap scenarios/probe-cooling --method pairs --jobs 2 -o audit-out --json
   fitaudit bootstrap scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
 
+
 def register(subparsers) -> None:
     parser = add_command(subparsers, "bootstrap", "bootstrap intervals beside the asymptotic ones, with failed refits",
                          DESCRIPTION, EXAMPLES, run)

@@ -56,6 +56,7 @@ EXAMPLES = """\
   fitaudit sweep scenarios/probe-cooling --jobs 2 -o audit-out --json
   fitaudit sweep scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
 
+
 def register(subparsers) -> None:
     parser = add_command(subparsers, "sweep", "fits from many starts and step factors: basins, safe start and factor",
                          DESCRIPTION, EXAMPLES, run)
