@@ -68,4 +68,3 @@ def test_recommendation_never_picks_a_setting_that_did_not_reach_the_best():
     share = np.array([[0.0, 0.003, 0.0]])
     median = np.array([[np.nan, 38.0, np.nan]])
     assert choose_step_factor(share, median, np.array([1.0, 0.5, 0.25]))[0] == (0, 1)
-
