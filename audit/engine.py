@@ -24,9 +24,15 @@ from .problem import Problem
 
 METHODS = ("gn", "lm")
 
-#: Runs are processed in blocks of this size: large enough to amortise numpy's per-call cost,
-#: small enough for the working arrays to stay in cache.
-BLOCK_SIZE = 1024
+#: Runs are processed in blocks whose working arrays hold about this many numbers: large enough
+#: to amortise numpy's per-call cost, small enough to stay in a core's cache. A run holds about
+#: (c + 1)·m numbers (derivative rows and residuals), (2c + 1)·m with central differences.
+#: Measured on the engine benchmark's problems, this beats a fixed 1024 runs by 10-25 % (best
+#: blocks about 4096, 640 and 320 runs for m·(c + 1) = 150, 1000 and 2250; 128 runs for
+#: m·(2c + 1) = 4250).
+BLOCK_ELEMENTS = 600_000
+#: Bounds on the runs per block (numpy's per-call cost dominates below the lower one).
+BLOCK_RUNS = (16, 4096)
 
 
 @dataclass(frozen=True)
@@ -139,10 +145,18 @@ def fit_batch(
         method=method,
         history=np.full((count, history, n), np.nan) if history else None,
     )
-    for first in range(0, count, BLOCK_SIZE):
-        block = np.arange(first, min(first + BLOCK_SIZE, count))
+    size = block_size(problem, len(runs.free))
+    for first in range(0, count, size):
+        block = np.arange(first, min(first + size, count))
         run_block(problem, runs, block, result, method, tol, max_iter, history)
     return result
+
+
+def block_size(problem: Problem, n_free: int) -> int:
+    """Runs per block for ``problem`` with ``n_free`` fitted parameters."""
+    rows = n_free if problem.jacobian is not None else 2 * n_free
+    fewest, most = BLOCK_RUNS
+    return int(np.clip(BLOCK_ELEMENTS // (problem.n_obs * (rows + 1)), fewest, most))
 
 
 def _validated_runs(problem, starts, step_factor, y, x, weights, free, method, tol, max_iter, history) -> Runs:

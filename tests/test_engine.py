@@ -9,7 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import least_squares
 
-from audit import InputError, Outcome, Problem, fit_batch
+from audit import InputError, Outcome, Problem, engine, fit_batch
 from audit.estimates import estimate
 from audit.scenario import load_scenario
 from audit.strd import log_relative_error
@@ -339,6 +339,33 @@ def test_a_run_does_not_depend_on_the_other_runs_in_its_batch(rates, position):
     row = position % len(rates)
     assert together.outcome[row] == alone.outcome[0]
     np.testing.assert_allclose(together.params[row], alone.params[0], rtol=1e-12, equal_nan=True)
+
+
+def test_runs_split_over_many_blocks_give_the_same_fits(monkeypatch):
+    # Blocks are an implementation detail: 40 runs in blocks of 3 must give what one block gives.
+    problem = two_exponentials()
+    rng = np.random.default_rng(5)
+    starts = np.array([5.0, 1.3, 2.0, 0.2]) * np.exp(rng.uniform(-0.7, 0.7, (40, 4)))
+    for method in ("gn", "lm"):
+        whole = fit_batch(problem, starts, method=method, history=2)
+        monkeypatch.setattr(engine, "BLOCK_RUNS", (3, 3))
+        split = fit_batch(problem, starts, method=method, history=2)
+        monkeypatch.undo()
+        np.testing.assert_array_equal(split.outcome, whole.outcome)
+        np.testing.assert_array_equal(split.iterations, whole.iterations)
+        np.testing.assert_allclose(split.params, whole.params, rtol=1e-13, equal_nan=True)
+        np.testing.assert_allclose(split.history, whole.history, rtol=1e-13, equal_nan=True)
+
+
+def test_blocks_hold_fewer_runs_when_each_run_needs_more_memory():
+    # Working set per run: (c + 1)·m numbers with a Jacobian, (2c + 1)·m with central differences.
+    with_jacobian = two_exponentials()
+    without = Problem(with_jacobian.model, with_jacobian.x, with_jacobian.y, with_jacobian.names)
+    assert engine.block_size(with_jacobian, 4) == engine.BLOCK_ELEMENTS // (200 * 5)
+    assert engine.block_size(without, 4) == engine.BLOCK_ELEMENTS // (200 * 9)
+    assert engine.block_size(with_jacobian, 1) == engine.BLOCK_ELEMENTS // (200 * 2)
+    huge = Problem(with_jacobian.model, np.linspace(0, 10, 10**6), np.ones(10**6), with_jacobian.names)
+    assert engine.block_size(huge, 4) == engine.BLOCK_RUNS[0]
 
 
 def test_central_differences_match_calculus():
