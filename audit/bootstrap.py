@@ -23,12 +23,12 @@ from .errors import InputError
 from .estimates import Estimates, estimate
 from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percentile_interval
 from .jsonable import jsonable
-from .outcomes import Outcome
 from .parallel import ParallelPlan, map_chunks
 from .problem import Problem
 from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale
 from .resampling import Scheme, build_scheme, leave_one_out
 from .scenario import Scenario
+from .single_fit import best_from_start
 
 #: Refits per chunk: up to MAX_CHUNK (large enough for the batched solver to amortise numpy's
 #: per-call cost and a worker its per-task cost), and fewer for many observations, so that a
@@ -310,11 +310,13 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
         method, samples, wild_multipliers, leverage_adjusted: override [bootstrap] method, samples,
             wild_weights and leverage_adjusted.
         step_factor: step factor of the refits (default: the first of [solver] step_factors).
-        best: (n,) best fit, e.g. the sweep's; default: the fit from the scenario's start.
+        best: (n,) best fit, e.g. the sweep's; default: the lowest-SSR converged fit from the
+            scenario's start over its step factors and one Levenberg-Marquardt run
+            (``single_fit.best_from_start``).
         plan, progress: as for ``run_bootstrap``.
 
     Raises:
-        InputError: when the fit from the start does not converge, or for settings out of range.
+        InputError: when no fit from the start converges, or for settings out of range.
     """
     solver, settings = scenario.solver, scenario.bootstrap
     refit = RefitSettings(step_factor=solver.step_factors[0] if step_factor is None else float(step_factor),
@@ -322,14 +324,12 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
     if not 0 < refit.step_factor <= 1:
         raise InputError(f"step factor {refit.step_factor}: must lie in (0, 1]")
     if best is None:
-        fit = fit_batch(scenario.problem, scenario.start[None, :], refit.step_factor, method=refit.method,
-                        tol=refit.tolerance, max_iter=refit.max_iterations)
-        if not fit.converged[0]:
-            outcome = Outcome(int(fit.outcome[0]))
-            raise InputError(f"{scenario.path}: the fit from the scenario's start did not converge with step "
-                             f"factor {refit.step_factor:g} ({outcome.label}: {outcome.meaning}); the bootstrap "
-                             "needs a converged fit: try a smaller --step-factor or check with 'fitaudit fit'")
-        best = fit.params[0]
+        found = best_from_start(scenario.problem, scenario.start, solver)
+        if found is None:
+            raise InputError(f"{scenario.path}: no fit from the scenario's start converged, with any of the step "
+                             "factors or with Levenberg-Marquardt; the bootstrap needs a converged fit: find a "
+                             "working start first ('fitaudit fit', 'fitaudit sweep')")
+        best = found[0]
     if leverage_adjusted is None:
         leverage_adjusted = settings.leverage_adjusted
     return run_bootstrap(scenario.problem, best, method=method or settings.method,

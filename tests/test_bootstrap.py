@@ -284,6 +284,29 @@ def test_step_factor_reaches_the_refits_and_the_result():
     assert np.median(damped.replicates.iterations) > np.median(full.replicates.iterations)
 
 
+def test_best_fit_comes_from_any_step_factor_that_converges(tmp_path):
+    # From this start Gauss-Newton with step factor 1 or 0.5 breaks down, 0.25 converges.
+    # Reference: scipy.optimize.least_squares (method "lm") on the weighted residuals, from the
+    # bundled scenario's own start (from the far start it runs off to tau < 0).
+    toml = (BUNDLED / "scenario.toml").read_text()
+    for old, new in (("start = 20.0", "start = 0.0"), ("start = 60.0", "start = 150.0"), ("start = 100.0", "start = 500.0")):
+        toml = toml.replace(old, new)
+    folder = tmp_path / "far-start"
+    folder.mkdir()
+    (folder / "scenario.toml").write_text(toml)
+    for name in ("model.py", "data.csv"):
+        (folder / name).write_bytes((BUNDLED / name).read_bytes())
+    scenario = load_scenario(folder)
+    problem = scenario.problem
+    plain = fit_batch(problem, np.tile(scenario.start, (2, 1)), [1.0, 0.5], tol=1e-8)
+    assert not plain.converged.any()
+    result = bootstrap_scenario(scenario, samples=50)
+    reference = least_squares(lambda a: problem.sqrt_weights * (problem.predict(a[None, :])[0] - problem.y),
+                              load_scenario(BUNDLED).start, method="lm", xtol=1e-12, ftol=1e-12)
+    np.testing.assert_allclose(result.best, reference.x, rtol=1e-6)
+    assert result.refit.step_factor == 1.0 and result.used > 40
+
+
 def test_command_writes_json_and_figures(capsys, tmp_path):
     status = main(["bootstrap", str(BUNDLED), "--samples", "300", "--jobs", "1", "--method", "wild",
                    "-o", str(tmp_path), "--json"])

@@ -19,9 +19,10 @@ from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_ou
 DESCRIPTION = """\
 How uncertain are the fitted parameters, and can the linearised standard errors be trusted?
 
-The fit's asymptotic standard errors and t intervals come from a linearisation at the best fit.
-This command draws many replicate data sets, refits each one from the best fit with the same
-solver and step factor, and shows the spread of the refitted parameters beside them:
+The fit's asymptotic standard errors and t intervals come from a linearisation at the best fit
+(the lowest-SSR fit from the scenario's start over its step factors and one Levenberg-Marquardt
+run). This command draws many replicate data sets, refits each one from the best fit with the
+scenario's solver and step factor, and shows the spread of the refitted parameters beside them:
 
   residual  fitted values + residuals drawn with replacement (errors alike at every x)
   wild      each observation keeps its own residual, times a random sign or Mammen multiplier
