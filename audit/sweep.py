@@ -29,6 +29,7 @@ import numpy as np
 
 from . import __version__
 from .chunk_cache import ChunkStore, cache_key
+from .equivalent_solutions import Equivalence, find_equivalent
 from .errors import InputError
 from .parallel import ParallelPlan, map_chunks
 from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
@@ -265,20 +266,24 @@ class _Sweep:
             level = np.abs(merged.ssr - merged.ssr[0]) <= (self.tolerance.ssr_relative * abs(merged.ssr[0])
                                                            + self.tolerance.ssr_floor)
             level[0] = False
+        equivalence = find_equivalent(self.problem, merged.params, level, self.tolerance.parameter_relative,
+                                      self.tolerance.floor)
+        symmetric_inside = equivalence.same_curve & self._inside(merged.params)
         return SweepResult(
             names=space.names, lower=space.lower, upper=space.upper, log=space.log, design=request.design,
             points=starts, seed=request.seed, step_factors=np.array(request.step_factors), methods=request.methods,
             tolerance=request.tolerance, max_iterations=request.max_iterations, counts=tally.counts, shares=shares,
             iterations_median=median, iterations_p90=p90, solution_params=merged.params, solution_ssr=merged.ssr,
             solution_shares=tally.solution_counts / starts, solution_level_with_best=level,
-            solution_inside=self._inside(merged.params),
-            start=self.scenario.start, start_distance=start_distance, region_level=REGION_LEVEL,
+            solution_inside=self._inside(merged.params), solution_same_curve=equivalence.same_curve,
+            solution_exchange=equivalence.exchange, start=self.scenario.start, start_distance=start_distance, region_level=REGION_LEVEL,
             region_min_starts=REGION_MIN_STARTS, region_radius=radius, region_lower=lower, region_upper=upper,
             region_starts=inside, region_share=share_inside,
             start_inside=inside_parameter.all(axis=-1), start_inside_parameter=inside_parameter,
             recommended=recommended, recommendation_reason=reason, maps=maps, cases=cases,
             chunks=dict(self.counters), cache=str(self.cache),
-            warnings=self._warnings(merged, design_best, level, starts))
+            warnings=self._warnings(merged, design_best, level & ~symmetric_inside, starts)
+            + _symmetry_notes(equivalence, symmetric_inside, tally.solution_counts / starts, recommended, request))
 
     def _warnings(self, merged: Catalogue, design_best: Catalogue, level: np.ndarray, starts: int) -> list[str]:
         request, notes = self.request, []
@@ -308,6 +313,24 @@ class _Sweep:
                          "different parameters: the data may not determine the parameters (see the identifiability "
                          "stage)")
         return notes
+
+
+def _symmetry_notes(equivalence: Equivalence, symmetric_inside: np.ndarray, solution_shares: np.ndarray,
+                    recommended: tuple[int, int] | None, request: SweepRequest) -> list[str]:
+    """One note per solution inside the ranges that repeats the best fit's curve with other
+    parameters (those outside are noted with the other outside solutions), and the share of
+    starts reaching the curve with them counted."""
+    notes = []
+    for s in np.flatnonzero(symmetric_inside):
+        how = f"with {equivalence.exchange[s]}" if equivalence.exchange[s] else "with other parameter values"
+        notes.append(f"solution {s + 1} gives the best fit's curve {how}: a symmetry of the model, not a "
+                     "separate fit; narrow the ranges so that only one of the two lies inside them")
+    if len(notes) and recommended is not None:
+        m, f = recommended
+        together = solution_shares[m, f, 0] + solution_shares[m, f, symmetric_inside].sum()
+        notes.append(f"counting the equivalent solution(s), {together:.1%} of the starts reach the best fit's curve "
+                     f"with {request.methods[m]} and step factor {request.step_factors[f]:g}")
+    return notes
 
 
 def _catalogue(chunk: dict[str, np.ndarray]) -> Catalogue:

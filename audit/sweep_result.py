@@ -103,7 +103,11 @@ class SweepResult:
             reaching each; solution_level_with_best: (S,) True where the SSR equals the best's
             within tolerance although the parameters differ (a sign of non-identifiability);
             solution_inside: (S,) True where every parameter lies within its searched range
-            (the best is the lowest SSR among those; solutions outside follow them).
+            (the best is the lowest SSR among those; solutions outside follow them);
+            solution_same_curve: (S,) True where a solution gives the best fit's curve with
+            other parameters, a distinct minimum (a symmetry of the model, see
+            ``equivalent_solutions``); solution_exchange: (S,) how its parameters map onto the
+            best fit's (e.g. "a↔c, b↔d"), "" where no exchange or sign change explains it.
         start: (n,) the scenario's own starting values; start_distance: its distance from the
             best fit in unit-cube coordinates (largest over the parameters).
         region_radius: (M, F) half-width, in unit-cube coordinates, of the largest cube around
@@ -139,6 +143,8 @@ class SweepResult:
     solution_shares: np.ndarray
     solution_level_with_best: np.ndarray
     solution_inside: np.ndarray
+    solution_same_curve: np.ndarray
+    solution_exchange: list[str]
     start: np.ndarray
     start_distance: float
     region_level: float
@@ -212,10 +218,11 @@ class SweepResult:
             "counts": self.counts, "shares": self.shares,
             "iterations_median": self.iterations_median, "iterations_p90": self.iterations_p90,
             "solutions": [{"params": dict(zip(self.names, params)), "ssr": ssr, "level_with_best": level,
-                           "inside_ranges": inside, "shares": self.solution_shares[..., s]}
-                          for s, (params, ssr, level, inside) in enumerate(zip(
+                           "inside_ranges": inside, "same_curve_as_best": same, "exchange": exchange,
+                           "shares": self.solution_shares[..., s]}
+                          for s, (params, ssr, level, inside, same, exchange) in enumerate(zip(
                               self.solution_params, self.solution_ssr, self.solution_level_with_best,
-                              self.solution_inside))],
+                              self.solution_inside, self.solution_same_curve, self.solution_exchange))],
             "best": {"params": dict(zip(self.names, self.best_params)), "ssr": self.best_ssr},
             "recommendation": recommendation,
             "safe_region": {"level": self.region_level, "min_starts": self.region_min_starts,

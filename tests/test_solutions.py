@@ -3,7 +3,10 @@ from __future__ import annotations
 
 import numpy as np
 from scipy.cluster.hierarchy import fcluster, linkage
+from scipy.optimize import least_squares
 
+from audit.equivalent_solutions import find_equivalent
+from audit.problem import Problem
 from audit.recommend import choose_step_factor
 from audit.solutions import UNCATALOGUED, Catalogue, SolutionTolerance, cluster, inside_first, merge_catalogues, relabel
 
@@ -68,3 +71,59 @@ def test_recommendation_never_picks_a_setting_that_did_not_reach_the_best():
     share = np.array([[0.0, 0.003, 0.0]])
     median = np.array([[np.nan, 38.0, np.nan]])
     assert choose_step_factor(share, median, np.array([1.0, 0.5, 0.25]))[0] == (0, 1)
+
+
+def two_decays_problem() -> tuple[Problem, np.ndarray]:
+    """y = a·exp(−b·x) + c·exp(−d·x), noisy (constructed data); the model is unchanged when the
+    terms swap places, (a, b, c, d) → (c, d, a, b) (calculus: the sum is symmetric)."""
+    x = np.linspace(0, 10, 200)
+
+    def model(x, a, b, c, d):
+        return a * np.exp(-b * x) + c * np.exp(-d * x)
+
+    y = model(x, 5.0, 1.3, 2.0, 0.2) + 0.01 * np.random.default_rng(3).standard_normal(x.size)
+    return Problem(model, x, y, ("a", "b", "c", "d")), x
+
+
+def test_exchanged_terms_are_the_same_curve_and_named():
+    problem, _ = two_decays_problem()
+    # Reference: scipy.optimize.least_squares from a start near each labelling.
+    fits = [least_squares(lambda p: problem.residuals(p[None, :])[0], start, method="lm", xtol=1e-14).x
+            for start in ([4.0, 1.0, 1.0, 0.1], [1.0, 0.1, 4.0, 1.0])]
+    np.testing.assert_allclose(fits[1], fits[0][[2, 3, 0, 1]], rtol=1e-6)
+    found = find_equivalent(problem, np.array(fits), np.array([False, True]), 1e-4, np.full(4, 1e-6))
+    assert list(found.same_curve) == [False, True]
+    assert found.exchange == ["", "a↔c, b↔d"]
+
+
+def test_mirrored_width_is_named_as_a_sign_change():
+    # A Gaussian peak depends on its width only through w², so w and −w give one curve (calculus).
+    x = np.linspace(-3, 3, 60)
+    problem = Problem(lambda x, h, w: h * np.exp(-(x / w) ** 2), x,
+                      2.0 * np.exp(-(x / 0.8) ** 2) + 0.01 * np.cos(7 * x), ("h", "w"))
+    best = least_squares(lambda p: problem.residuals(p[None, :])[0], [1.5, 1.0], method="lm", xtol=1e-14).x
+    params = np.array([best, best * [1, -1]])
+    found = find_equivalent(problem, params, np.array([False, True]), 1e-4, np.full(2, 1e-6))
+    assert list(found.same_curve) == [False, True] and found.exchange[1] == "w → −w"
+
+
+def test_a_structurally_undetermined_pair_is_not_called_a_symmetry():
+    # y = a·b·x: (2, 3) and (3, 2) give one curve, but so does every a·b = 6; the information
+    # matrix is singular there (its columns b·x and a·x are proportional), the standard errors
+    # are not finite, and the two points are not separate minima.
+    x = np.linspace(1, 5, 20)
+    problem = Problem(lambda x, a, b: a * b * x, x, 6.0 * x + 0.01 * np.sin(5 * x), ("a", "b"))
+    # Reference: the least-squares slope of y on x (numpy.linalg.lstsq) is the fitted product.
+    product = np.linalg.lstsq(x[:, None], problem.y, rcond=None)[0][0]
+    best = np.array([2.0, product / 2.0])
+    found = find_equivalent(problem, np.array([best, best[::-1]]), np.array([False, True]), 1e-4, np.full(2, 1e-6))
+    assert not found.same_curve.any()
+
+
+def test_a_different_curve_with_a_level_ssr_is_not_the_same_curve():
+    problem, x = two_decays_problem()
+    best = least_squares(lambda p: problem.residuals(p[None, :])[0], [4.0, 1.0, 1.0, 0.1], method="lm",
+                         xtol=1e-14).x
+    other = best * [1.0, 1.0, 1.0, 1.01]
+    found = find_equivalent(problem, np.array([best, other]), np.array([False, True]), 1e-4, np.full(4, 1e-6))
+    assert not found.same_curve.any() and found.exchange == ["", ""]

@@ -10,6 +10,7 @@ import json
 
 import numpy as np
 import pytest
+from scipy.optimize import least_squares
 
 from audit.cli import main
 from audit.figures.sweep import write_figures
@@ -74,6 +75,48 @@ def test_reference_is_the_best_solution_inside_the_searched_ranges(write_scenari
                     for label, count in expected_counts(scenario, "grid", 1024, factor).items()}
         found = {label: int(result.counts[0, f, k]) for k, label in enumerate(CATEGORIES) if result.counts[0, f, k]}
         assert found == expected, f"step factor {factor}"
+
+
+def test_exchanged_terms_of_two_decays_are_one_curve_counted_together(write_scenario):
+    # a·exp(−b·t) + c·exp(−d·t) is unchanged when its terms swap places (calculus), and both
+    # labellings lie inside the ranges: the sweep must call the second a symmetry, not a sign
+    # of undetermined parameters. Reference: scipy.optimize.least_squares from the scenario's start.
+    t = np.linspace(0, 10, 120)
+    signal = 5.0 * np.exp(-1.3 * t) + 2.0 * np.exp(-0.2 * t) + 0.01 * np.cos(11 * t)
+    data = "t,signal\n" + "".join(f"{a:.17g},{b:.17g}\n" for a, b in zip(t, signal))
+    folder = write_scenario("""
+        title = "two decays"
+        [data]
+        file = "data.csv"
+        x = "t"
+        y = "signal"
+        [model]
+        expression = "a * exp(-b * t) + c * exp(-d * t)"
+        [parameters]
+        a = { start = 4.0, range = [0.5, 10.0], scale = "log" }
+        b = { start = 1.0, range = [0.05, 3.0], scale = "log" }
+        c = { start = 1.0, range = [0.5, 10.0], scale = "log" }
+        d = { start = 0.1, range = [0.05, 3.0], scale = "log" }
+        [solver]
+        step_factors = [0.5]
+        [sweep]
+        design = "sobol"
+        points = 256
+        maps = []
+        """, data=data)
+    _, result = sweep(folder)
+    reference = least_squares(lambda p: p[0] * np.exp(-p[1] * t) + p[2] * np.exp(-p[3] * t) - signal,
+                              [4.0, 1.0, 1.0, 0.1], method="lm", xtol=1e-14).x
+    assert len(result.solution_ssr) >= 2
+    one, other = (int(np.argmin(np.max(np.abs(result.solution_params - target) / np.abs(target), axis=1)))
+                  for target in (reference, reference[[2, 3, 0, 1]]))
+    np.testing.assert_allclose(result.solution_params[one], reference, rtol=1e-5)
+    np.testing.assert_allclose(result.solution_params[other], reference[[2, 3, 0, 1]], rtol=1e-5)
+    assert {one, other} == {0, 1} and list(result.solution_same_curve[:2]) == [False, True]
+    assert result.solution_exchange[1] == "a↔c, b↔d"
+    assert not any("may not determine" in note for note in result.warnings)
+    together = result.solution_shares[0, 0, 0] + result.solution_shares[0, 0, 1]
+    assert any(f"{together:.1%} of the starts reach the best fit's curve" in note for note in result.warnings)
 
 
 def test_grid_shares_match_the_derived_areas(twin_folder):

@@ -152,7 +152,8 @@ def _show_solutions(result: SweepResult) -> None:
         table.add_column(heading, justify="right")
     shown = min(len(result.solution_ssr), 8)
     for s in range(shown):
-        label = ("best" if s == 0 else str(s + 1)) + ("" if result.solution_inside[s] else " (outside ranges)")
+        label = ("best" if s == 0 else str(s + 1)) + ("" if result.solution_inside[s] else " (outside ranges)") \
+            + (" (same curve)" if result.solution_same_curve[s] else "")
         table.add_row(label, number(result.solution_ssr[s], 8), *(number(v, 8) for v in result.solution_params[s]),
                       f"{np.max(result.solution_shares[..., s]):.1%}")
     out.print(table)
