@@ -43,7 +43,7 @@ def map_classes(result: SweepResult, basin_map: BasinMap, m: int) -> tuple[np.nd
     category = basin_map.category[m]
     hatch = OUTCOME_STYLE["other"][1]
     for s in range(1, NAMED_SOLUTIONS + 1):
-        looks.append((SOLUTION_COLOURS[s], hatch, f"solution {s + 1} (SSR {_ssr(result, s)})"))
+        looks.append((SOLUTION_COLOURS[s], hatch, f"solution {s + 1} (SSR {_ssr(result, s)}{_same_curve(result, s)})"))
     looks.append((SOLUTION_COLOURS[NAMED_SOLUTIONS + 1], hatch, "further solutions"))
     for s in range(1, NAMED_SOLUTIONS + 1):
         classes[solution == s] = s
@@ -52,6 +52,10 @@ def map_classes(result: SweepResult, basin_map: BasinMap, m: int) -> tuple[np.nd
         looks.append(OUTCOME_STYLE[label])
         classes[category == k] = NAMED_SOLUTIONS + k
     return classes, looks
+
+
+def _same_curve(result: SweepResult, s: int) -> str:
+    return ", same curve as the best" if s < len(result.solution_same_curve) and result.solution_same_curve[s] else ""
 
 
 def _ssr(result: SweepResult, s: int) -> str:
@@ -137,7 +141,7 @@ def basin_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path,
         draw_classes(panel, basin_map, classes[f], looks)
         regions |= mark_region(panel, result, basin_map, m, f)
         mark_points(panel, result, basin_map)
-        panel.set_title(f"step factor {factor:g}: {basin_map.shares[m, f, BEST]:.0%} of this map reach the best",
+        panel.set_title(f"step factor {factor:g}\n{basin_map.shares[m, f, BEST]:.0%} of this map reach the best",
                         fontsize=9)
     _labels(axes, basin_map)
     present = sorted(set(np.unique(classes).tolist()))
