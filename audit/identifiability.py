@@ -231,7 +231,7 @@ def analyse(problem: Problem, params: np.ndarray, *, lower: np.ndarray, upper: n
     typical = problem.typical_magnitude(params)
     steps = max(2, (settings.profile_points - 1) // 2)
     grid = plan_grid(params, estimates.t_quantile * estimates.std_errors, lower, upper, steps,
-                     settings.profile_reach, fallback=np.maximum(np.abs(params), typical))
+                     settings.profile_reach, fallback=np.maximum(np.abs(params), typical), log_axis=log_axis)
     walk = RefitSettings(step_factor=solver.step_factors[0], tolerance=solver.tolerance,
                         max_iterations=solver.max_iterations)
     profiles = profile_all(problem, params, estimates.ssr, grid, settings.confidence, walk, plan, on_step)

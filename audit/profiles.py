@@ -16,6 +16,9 @@ batch across all parameters and both directions (each run holds its own paramete
 with Levenberg-Marquardt in a second call. The crossing of the threshold is interpolated in
 the signed root of SSR − SSR_min, which is linear in θ for a linear model, so the interval is
 exact there and second-order accurate elsewhere.
+
+Parameters on a logarithmic axis get a geometric grid (equal ratios, not equal differences), so
+a side that runs towards zero or over decades is walked evenly in log θ.
 """
 from __future__ import annotations
 
@@ -57,10 +60,12 @@ class ProfileGrid:
     Attributes:
         values: (n, 2, K) pinned values, side 0 walking down, side 1 walking up, nearest first.
         clipped: (n, 2) True where the side ends at the parameter's range bound.
+        log: (n,) True where the grid is geometric (equal ratios).
     """
 
     values: np.ndarray
     clipped: np.ndarray
+    log: np.ndarray
 
 
 @dataclass
@@ -76,6 +81,7 @@ class Profiles:
         f_quantile: F(1, m − n) quantile at ``confidence``.
         threshold: SSR_min·(1 + f_quantile / dof), the SSR level that bounds the interval.
         values: (n, P) grid of each profile in increasing order, the estimate in the middle.
+        log: (n,) True where that grid is geometric (a parameter on a logarithmic axis).
         ssr: (n, P) profile SSR at each grid value; NaN where the refit failed.
         params: (n, P, n) all parameters at each profile point (the others refitted).
         outcome: (n, P) ``Outcome`` of each refit (the estimate itself counts as converged),
@@ -95,6 +101,7 @@ class Profiles:
     f_quantile: float
     threshold: float
     values: np.ndarray
+    log: np.ndarray
     ssr: np.ndarray
     params: np.ndarray
     outcome: np.ndarray
@@ -126,7 +133,7 @@ class Profiles:
                 "name": name, "estimate": self.estimate[j],
                 "lower": self.lower[j], "upper": self.upper[j],
                 "lower_status": self.lower_status[j], "upper_status": self.upper_status[j],
-                "values": self.values[j], "ssr": self.ssr[j],
+                "values": self.values[j], "log_grid": self.log[j], "ssr": self.ssr[j],
                 "outcome": [_label(code) for code in self.outcome[j]],
                 "others": {other: self.params[j, :, k] for k, other in enumerate(self.names) if k != j},
             } for j, name in enumerate(self.names)],
@@ -134,8 +141,9 @@ class Profiles:
 
 
 def plan_grid(estimate: np.ndarray, half_width: np.ndarray, lower_bound: np.ndarray, upper_bound: np.ndarray,
-              steps: int, reach: float, fallback: np.ndarray) -> ProfileGrid:
-    """Evenly spaced grid points reaching ``reach`` asymptotic half-widths each way, clipped to the range.
+              steps: int, reach: float, fallback: np.ndarray, log_axis: np.ndarray | None = None) -> ProfileGrid:
+    """Grid points reaching ``reach`` asymptotic half-widths each way, clipped to the range;
+    evenly spaced, or in equal ratios for parameters on a logarithmic axis.
 
     Args:
         estimate: (n,) best fit.
@@ -145,6 +153,8 @@ def plan_grid(estimate: np.ndarray, half_width: np.ndarray, lower_bound: np.ndar
         reach: how many half-widths each side reaches.
         fallback: (n,) distance reached per side where the half-width is unusable and there is
             no range bound on that side.
+        log_axis: (n,) True for parameters on a logarithmic axis; their grid is geometric where
+            the estimate and both ends are positive (else it stays even).
     """
     usable = np.isfinite(half_width) & (half_width > 0)
     distance = np.where(usable, reach * np.where(usable, half_width, 0.0), fallback)
@@ -156,9 +166,13 @@ def plan_grid(estimate: np.ndarray, half_width: np.ndarray, lower_bound: np.ndar
         clipped.append(bounded & (wanted >= room))
         ends.append(estimate + direction * np.minimum(wanted, room))
     ends, clipped = np.stack(ends, axis=1), np.stack(clipped, axis=1)
+    log = np.zeros(len(estimate), dtype=bool) if log_axis is None else np.asarray(log_axis, dtype=bool)
+    log = log & (estimate > 0) & np.all(ends > 0, axis=1)
     fraction = np.arange(1, steps + 1) / steps
-    values = estimate[:, None, None] + (ends - estimate[:, None])[:, :, None] * fraction
-    return ProfileGrid(values=values, clipped=clipped)
+    even = estimate[:, None, None] + (ends - estimate[:, None])[:, :, None] * fraction
+    with np.errstate(divide="ignore", invalid="ignore"):
+        geometric = estimate[:, None, None] * (ends / estimate[:, None])[:, :, None] ** fraction
+    return ProfileGrid(values=np.where(log[:, None, None], geometric, even), clipped=clipped, log=log)
 
 
 def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: ProfileGrid, confidence: float,
@@ -215,7 +229,7 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
     lowest = np.nanargmin(np.where(np.isfinite(ssr), ssr, np.inf))
     return Profiles(
         names=problem.names, estimate=estimate, ssr_min=float(ssr_min), dof=dof, confidence=confidence,
-        f_quantile=f_quantile, threshold=float(threshold), values=values, ssr=ssr, params=params,
+        f_quantile=f_quantile, threshold=float(threshold), values=values, log=grid.log, ssr=ssr, params=params,
         outcome=outcome, lower=ends[:, 0], upper=ends[:, 1], lower_status=status[:, 0], upper_status=status[:, 1],
         lowest_ssr=float(ssr.flat[lowest]), lowest_params=params.reshape(-1, n)[lowest],
     )

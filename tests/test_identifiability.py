@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from scipy import stats
-from scipy.optimize import least_squares
+from scipy.optimize import brentq, least_squares
 
 from audit import Problem
 from audit.cli import main
@@ -110,6 +110,41 @@ def test_profile_points_agree_with_scipy_refits():
             np.testing.assert_allclose(profiles.params[j, point][free], found.x, rtol=1e-6)
             checked += 1
     assert checked == 12
+
+
+def test_log_axis_profile_walks_in_equal_ratios_and_finds_the_exact_interval():
+    # Reference: for y = A·exp(−k·x) the profile over A is closed form (A = e·y / e·e with
+    # e = exp(−k·x), a linear least-squares fit), and the interval ends are its crossings of the
+    # threshold, found by scipy.optimize.brentq.
+    rng = np.random.default_rng(4)
+    x = np.linspace(0.0, 0.3, 30)
+
+    def decay(x, amplitude, rate):
+        return amplitude * np.exp(-rate * x)
+
+    y = decay(x, 2.0, 0.3) + 0.05 * rng.standard_normal(x.size)
+    problem = Problem(decay, x, y, ("amplitude", "rate"))
+    params, outcome = best_fit(problem, np.array([1.5, 0.5]), TIGHT)
+    result = analyse(problem, params, lower=np.array([0.01, 1e-3]), upper=np.array([100.0, 100.0]),
+                     log_axis=np.array([False, True]), fit_outcome=outcome)
+
+    def profile_ssr(rate):
+        e = np.exp(-rate * x)
+        residual = y - (e @ y / (e @ e)) * e
+        return residual @ residual
+
+    dof = x.size - 2
+    threshold = profile_ssr(params[1]) * (1 + stats.f.ppf(0.95, 1, dof) / dof)
+    exact = [brentq(lambda k: profile_ssr(k) - threshold, low, high) for low, high in ((1e-3, params[1]),
+                                                                                        (params[1], 100.0))]
+    profiles = result.profiles
+    np.testing.assert_allclose([profiles.lower[1], profiles.upper[1]], exact, rtol=1e-4)
+    assert list(profiles.log) == [False, True]
+    below = profiles.values[1][: len(profiles.values[1]) // 2 + 1]      # the bound (clipped) … the estimate
+    assert below[0] == pytest.approx(1e-3) and below[-1] == pytest.approx(params[1])
+    np.testing.assert_allclose(below[1:] / below[:-1], below[1] / below[0], rtol=1e-9)
+    steps = np.diff(profiles.values[0])
+    np.testing.assert_allclose(steps[: len(steps) // 2], steps[0], rtol=1e-9)   # A: even steps
 
 
 # ---------------------------------------------------------------- NIST StRD standard errors

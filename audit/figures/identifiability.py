@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib.colors import LinearSegmentedColormap
-from matplotlib.ticker import FuncFormatter, NullFormatter
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 from ..identifiability import Identifiability
 from ..profiles import NOT_WALKED
@@ -25,6 +25,9 @@ THRESHOLD = "#b5651d"
 POSITIVE, NEGATIVE = "#1b3a5c", "#e6aa68"
 #: The profile panels show SSR up to this many times the threshold's rise above SSR_min.
 PROFILE_HEADROOM = 6.0
+#: A log-scale parameter's profile is drawn on a log axis when its walked part spans at least
+#: this ratio.
+LOG_AXIS_SPAN = 10.0
 #: Weak directions drawn at most.
 DIRECTIONS_SHOWN = 3
 
@@ -72,11 +75,17 @@ def _profiles(result: Identifiability, folder: Path) -> list[Path]:
         bottom = min(profiles.ssr_min, np.nanmin(ssr)) - 0.15 * (top - profiles.ssr_min)
         if np.isfinite(top) and top > bottom:
             axis.set_ylim(bottom, top)
-        if values[-1] > values[0]:
-            axis.set_xlim(values[0], values[-1])
+        walked = values[profiles.outcome[j] != NOT_WALKED]
+        if walked.max() > walked.min():
+            axis.set_xlim(walked.min(), walked.max())
         axis.set_title(name, fontsize=10, loc="right")
         axis.set_ylabel("profile SSR")
         axis.ticklabel_format(axis="both", style="sci", scilimits=(-3, 4), useOffset=False)
+        if profiles.log[j] and walked.max() >= LOG_AXIS_SPAN * walked.min():
+            axis.set_xscale("log")
+            axis.xaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
+            axis.xaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
+            axis.xaxis.set_minor_formatter(NullFormatter())
     axes[0].plot([], [], color=ASYMPTOTIC, linestyle="--", label="asymptotic interval")
     axes[0].plot([], [], color=EMPIRICAL, linewidth=4, solid_capstyle="butt", label="profile interval")
     figure.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncol=5, fontsize=8,
