@@ -62,6 +62,14 @@ def test_fit_table_and_not_converged_exit_1(capsys):
     assert status == 1 and "converged" not in out.split("outcome:")[1].split("\n")[0]
 
 
+def test_fit_takes_every_start_override_whether_listed_or_repeated(capsys):
+    # The fit's first row is the start: both spellings must override both parameters.
+    for argv in (["--start", "tau=80", "dT=50"], ["--start", "tau=80", "--start", "dT=50"]):
+        status, out, _ = run(capsys, "fit", BUNDLED, "--json", *argv)
+        first = json.loads(out)["iterations"][0]["params"]
+        assert (first["T_env"], first["dT"], first["tau"]) == (20.0, 50.0, 80.0)
+
+
 @pytest.mark.parametrize("argv, fragment", [
     (["--start", "tua=3"], "did you mean 'tau'"),
     (["--start", "tau"], "expected NAME=VALUE"),

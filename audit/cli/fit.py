@@ -40,8 +40,8 @@ def register(subparsers) -> None:
                         help="step factor in (0, 1] (default: the first of the scenario's step_factors)")
     parser.add_argument("--method", choices=METHODS, help="gn (Gauss-Newton) or lm (Levenberg-Marquardt); "
                         "default: the scenario's [solver] method")
-    parser.add_argument("--start", nargs="+", default=[], metavar="NAME=VALUE",
-                        help="override starting values, e.g. --start tau=300 dT=50")
+    parser.add_argument("--start", nargs="+", action="extend", default=[], metavar="NAME=VALUE",
+                        help="override starting values, e.g. --start tau=300 dT=50 (the option may also be repeated)")
     add_json_option(parser)
 
 
