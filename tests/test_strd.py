@@ -161,7 +161,7 @@ def test_cli_table_marks_the_precision_limited_problem(tmp_path, nist_dir, capsy
 
 def test_cli_json_has_every_run(tmp_path, nist_dir, capsys):
     (tmp_path / "Misra1a.dat").symlink_to(nist_dir / "Misra1a.dat")
-    assert main(["strd", str(tmp_path), "--json", "--step-factor", "1", "0.5"]) == 0
+    assert main(["strd", str(tmp_path), "--json", "--step-factor", "1", "--step-factor", "0.5"]) == 0
     payload = json.loads(capsys.readouterr().out)
     assert payload["counts"] == {"problems": 1, "passed_start1": 1, "passed_start2": 1}
     problem = payload["problems"][0]

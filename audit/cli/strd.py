@@ -52,7 +52,7 @@ def register(subparsers) -> None:
     parser.add_argument("folder", metavar="DIR", help="folder holding NIST StRD nonlinear regression .dat files")
     parser.add_argument("--method", choices=METHODS, default=DEFAULTS.method,
                         help=f"gn (Gauss-Newton with step factor) or lm (Levenberg-Marquardt); default {DEFAULTS.method}")
-    parser.add_argument("--step-factor", type=float, nargs="+", default=list(DEFAULTS.step_factors), metavar="A",
+    parser.add_argument("--step-factor", type=float, nargs="+", action="extend", metavar="A",
                         help="one or more step factors in (0, 1]; with several, each start shows its best run "
                              "and the factors that reached the same verdict (default 1)")
     parser.add_argument("--tolerance", type=float, default=DEFAULTS.tolerance, metavar="TOL",
@@ -63,8 +63,8 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    settings = StrdSettings(method=args.method, step_factors=tuple(args.step_factor), tolerance=args.tolerance,
-                            max_iterations=args.max_iterations)
+    settings = StrdSettings(method=args.method, step_factors=tuple(args.step_factor or DEFAULTS.step_factors),
+                            tolerance=args.tolerance, max_iterations=args.max_iterations)
     total = len(reference_files(args.folder))
     with progress_bar("reference problems", disable=args.json) as progress:
         task = progress.add_task("fitting", total=total, rate="")
