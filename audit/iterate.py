@@ -18,6 +18,12 @@ from .trust_region import INITIAL_RADIUS_FACTOR, Spectrum
 
 #: A parameter past this multiple of its typical magnitude (plus its start) has run away.
 DIVERGENCE_FACTOR = 1e8
+#: Non-finite model values or derivatives at a parameter past this multiple of its typical
+#: magnitude (plus its start; a scenario's typical magnitude is the larger end of the range)
+#: mean the run has run off to where the model overflows (diverged: an exponent parameter
+#: overflows at a few hundred times its size); closer in they are the model's own failure
+#: (model error).
+OVERFLOW_FACTOR = 10.0
 #: A residual sum of squares past this multiple of the larger of the start's and the data's own
 #: sum of squares has blown up.
 SSR_BLOWUP = 1e12
@@ -89,6 +95,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         alpha=runs.step_factor[block],
         floor=FLOOR_FRACTION * typical,
         bound=DIVERGENCE_FACTOR * typical + np.abs(starts),
+        far=OVERFLOW_FACTOR * typical + np.abs(starts),
         y=None if shared_y is not None else runs.y[block],
         sqrt_w=None if runs.sqrt_weights is None or shared_w is not None else runs.sqrt_weights[block],
         x=None if shared_x is not None else np.moveaxis(problem.take_runs(runs.x, block), problem.runs_axis(), 0),
@@ -159,7 +166,9 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
                 rows = [row * weights for row in rows]
             system = StepSystem.build(rows, state.weighted, state.norm_memory if method == "lm" else None,
                                       held=state.held)
-            finish(system.broken, Outcome.MODEL_ERROR, iteration - 1)
+            overflowed = system.broken & (np.abs(state.params) > state.far).any(axis=1)
+            finish(overflowed, Outcome.DIVERGED, iteration - 1)
+            finish(system.broken[~overflowed], Outcome.MODEL_ERROR, iteration - 1)
             system = system.restricted(~system.broken)
             if method == "gn":
                 finish(system.rank_deficient, Outcome.SINGULAR, iteration - 1)
@@ -291,14 +300,16 @@ def _track_reversals(state: _Working, move: np.ndarray) -> None:
 def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
     """Give outcomes to the runs whose last step decided their fate.
 
-    Non-finite or runaway parameters, an infinite or blown-up SSR: diverged. A NaN SSR at
-    parameters that have not run away: the model is undefined there (model error). A settled
+    Non-finite or runaway parameters, an infinite or blown-up SSR, a NaN SSR past
+    OVERFLOW_FACTOR typical magnitudes: diverged. A NaN SSR closer in: the model is undefined
+    there (model error). A settled
     run whose Jacobian lost rank (Levenberg-Marquardt only; Gauss-Newton stops at the loss):
     singular. Otherwise settled: converged. Reversing steps for OSCILLATION_WINDOW iterations
     without the SSR falling below its value two steps back: oscillating.
     """
     runaway = ~np.isfinite(state.params).all(axis=1) | (np.abs(state.params) > state.bound).any(axis=1)
-    diverged = runaway | (state.ssr > state.blowup) | np.isposinf(state.ssr)
+    overflowed = ~np.isfinite(state.ssr) & (np.abs(state.params) > state.far).any(axis=1)
+    diverged = runaway | overflowed | (state.ssr > state.blowup) | np.isposinf(state.ssr)
     undefined = ~diverged & ~np.isfinite(state.ssr)
     healthy = ~diverged & ~undefined
     singular = healthy & state.settled & state.lost_rank

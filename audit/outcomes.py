@@ -33,11 +33,13 @@ class Outcome(IntEnum):
 
 MEANINGS: dict[Outcome, str] = {
     Outcome.CONVERGED: "the largest scaled parameter change fell below the tolerance",
-    Outcome.DIVERGED: "parameters or the residual sum of squares became non-finite or ran past their blow-up bounds",
+    Outcome.DIVERGED: ("parameters or the residual sum of squares became non-finite or ran past their blow-up bounds, "
+                       "or the model overflowed once a parameter ran past ten times its range"),
     Outcome.OSCILLATING: "successive steps kept reversing direction while the residual sum of squares did not fall",
     Outcome.STALLED: "the iteration limit was reached without converging, diverging or oscillating",
     Outcome.SINGULAR: "the Jacobian lost rank, so the step is not determined by the data",
-    Outcome.MODEL_ERROR: "the model raised, or returned non-finite or wrongly shaped values, at this run's parameters",
+    Outcome.MODEL_ERROR: ("the model raised, or returned non-finite or wrongly shaped values, at this run's "
+                          "parameters, all within ten times their ranges"),
 }
 
 

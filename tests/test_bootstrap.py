@@ -289,7 +289,8 @@ def test_best_fit_comes_from_any_step_factor_that_converges(tmp_path):
     # Reference: scipy.optimize.least_squares (method "lm") on the weighted residuals, from the
     # bundled scenario's own start (from the far start it runs off to tau < 0).
     toml = (BUNDLED / "scenario.toml").read_text()
-    for old, new in (("start = 20.0", "start = 0.0"), ("start = 60.0", "start = 150.0"), ("start = 100.0", "start = 500.0")):
+    for old, new in (("start = 20.0", "start = 0.0"), ("start = 60.0", "start = 150.0"),
+                     ("start = 100.0", "start = 500.0")):
         toml = toml.replace(old, new)
     folder = tmp_path / "far-start"
     folder.mkdir()

@@ -253,6 +253,30 @@ def test_model_error_only_for_the_runs_where_the_model_fails():
     np.testing.assert_allclose(result.params[[1, 3]], [[4.0, 1.0], [4.0, 1.0]], rtol=1e-9)
 
 
+def test_non_finite_values_after_a_step_are_model_error_close_in_and_divergence_far_out():
+    # Close in: y = sqrt(a)·x with data 0.1·x from a = 1. The Gauss-Newton step (calculus:
+    # J = x/(2·sqrt a), r = −0.9·x, Δa = Σ J·r / Σ J² = −1.8) lands on a = −0.8, where sqrt is
+    # undefined: the model's own failure, one typical magnitude from the start.
+    x = np.linspace(0.5, 2.0, 10)
+    near = Problem(lambda x, a: np.sqrt(a) * x, x, 0.1 * x, ("a",), jacobian=lambda x, a: [x / (2 * np.sqrt(a))])
+    result = fit_batch(near, [[1.0]], history=2)
+    assert result.outcome[0] == Outcome.MODEL_ERROR
+    assert result.history[0, -1, 0] == pytest.approx(-0.8, rel=1e-12)
+    # Far out: y = exp(−exp(u)·t) from u = −20, where the curve is flat (k = exp(u) ≈ 2e-9). The
+    # step Δu = Σ J·r / Σ J² with J = −t·k·exp(−k·t) is about 3e8: exp(u) overflows there, the
+    # derivatives become inf·0 = NaN. The run ran off (diverged), the model is not at fault.
+    t = np.linspace(0.1, 3.0, 12)
+    far = Problem(lambda t, u: np.exp(-np.exp(u) * t), t, np.exp(-t), ("u",),
+                  jacobian=lambda t, u: [-t * np.exp(u) * np.exp(-np.exp(u) * t)])
+    k = np.exp(-20.0)
+    column, residual = -t * k * np.exp(-k * t), np.exp(-t) - np.exp(-k * t)
+    step = column @ residual / (column @ column)
+    assert step > 1e8 and -20.0 + step > np.log(np.finfo(float).max)      # exp overflows there
+    result = fit_batch(far, [[-20.0]], history=2)
+    assert result.outcome[0] == Outcome.DIVERGED
+    assert result.history[0, -1, 0] == pytest.approx(-20.0 + step, rel=1e-9)
+
+
 # ---------------------------------------------------------------- per-run data, free mask, history
 
 def test_per_run_observations_match_separate_fits():
