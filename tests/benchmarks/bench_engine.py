@@ -3,7 +3,8 @@
 Run:  python tests/benchmarks/bench_engine.py [--starts N]
 
 Three constructed problems (2, 4 and 8 parameters), the same starts, the same analytic
-Jacobian and the same tolerance for both. Only runs where both solvers converge to the same
+Jacobian and the same tolerance for both; then a size scan of the 4- and 8-parameter problems
+with fewer observations (``--scan``). Only runs where both solvers converge to the same
 point (parameters within 1e-6 relative) count; the rate is counted runs per second of the
 whole batch (every run's time is charged, failed ones included). Prints one JSON object.
 
@@ -23,6 +24,7 @@ for variable in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
 import argparse  # noqa: E402
 import json  # noqa: E402
 import time  # noqa: E402
+from functools import partial  # noqa: E402
 
 import numpy as np  # noqa: E402
 from scipy.optimize import least_squares  # noqa: E402
@@ -47,9 +49,9 @@ def saturation() -> tuple[Problem, np.ndarray]:
     return _noisy(model, jacobian, x, truth, ("b1", "b2"), 0.1), truth
 
 
-def two_decays() -> tuple[Problem, np.ndarray]:
+def two_decays(observations: int = 200) -> tuple[Problem, np.ndarray]:
     """4 parameters, m = 200: a fast and a slow exponential decay."""
-    x = np.linspace(0, 10, 200)
+    x = np.linspace(0, 10, observations)
     truth = np.array([5.0, 1.3, 2.0, 0.2])
 
     def model(x, a, b, c, d):
@@ -62,9 +64,9 @@ def two_decays() -> tuple[Problem, np.ndarray]:
     return _noisy(model, jacobian, x, truth, ("a", "b", "c", "d"), 0.01), truth
 
 
-def two_peaks() -> tuple[Problem, np.ndarray]:
+def two_peaks(observations: int = 250) -> tuple[Problem, np.ndarray]:
     """8 parameters, m = 250: two Gaussian peaks on an exponential baseline."""
-    x = np.linspace(1, 250, 250)
+    x = np.linspace(1, 250, observations)
     truth = np.array([98.0, 0.0105, 100.0, 67.0, 23.0, 72.0, 178.0, 18.5])
 
     def model(x, b1, b2, b3, b4, b5, b6, b7, b8):
@@ -178,9 +180,24 @@ def measure(name: str, build, count: int, spread: float, seed: int) -> dict:
     return figures
 
 
+def size_scan(count: int, observations: list[int]) -> list[dict]:
+    """The 4- and 8-parameter problems with fewer observations: where the speedup comes from."""
+    rows = []
+    for name, build, spread, seed in (("two decays", two_decays, 0.4, 2), ("two peaks", two_peaks, 0.08, 3)):
+        for m in observations:
+            figures = measure(name, partial(build, m), count, spread, seed)
+            rows.append({"problem": name, "parameters": figures["parameters"], "observations": m,
+                         "speedup_gn": figures["gn"]["speedup"], "speedup_lm": figures["lm"]["speedup"],
+                         "speedup_ceiling": figures["speedup_ceiling"]})
+    return rows
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--starts", type=int, default=3000, help="starts per problem (default 3000)")
+    parser.add_argument("--scan", default="25,50,100", metavar="M,M,...",
+                        help="observation counts of the size scan of the 4- and 8-parameter problems "
+                             "(default 25,50,100; empty to skip)")
     args = parser.parse_args()
     report = {
         "threads": 1,
@@ -190,6 +207,7 @@ def main() -> None:
             measure("two decays (4 parameters)", two_decays, args.starts, 0.4, 2),
             measure("two peaks on a baseline (8 parameters)", two_peaks, args.starts, 0.08, 3),
         ],
+        "size_scan": size_scan(args.starts, [int(m) for m in args.scan.split(",") if m.strip()]),
     }
     print(json.dumps(report, indent=2))
 
