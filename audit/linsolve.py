@@ -97,18 +97,8 @@ class StepSystem:
         factor, pivots = cholesky_batch(gram)
         careful = (pivots.min(axis=1) < PIVOT_TOLERANCE) & ~dead_column.any(axis=1) & ~broken
         rank_deficient = dead_column.any(axis=1) & ~broken
-        scaled = np.stack([np.broadcast_to(row, residual.shape)[careful] for row in rows], axis=1)
-        scaled = scaled / norms[careful][:, :, None]
-        if held is not None:
-            # Held columns become unit columns on rows of their own (appended observations with
-            # zero residual), which is what the Gram matrix above says.
-            scaled = np.concatenate([np.where(held[careful][:, :, None], 0.0, scaled),
-                                     _diagonal(held[careful].astype(float))], axis=2)
-            residual = np.concatenate([residual, np.zeros((count, width))], axis=1)
-        triangle, projected = _triangular_factor(scaled, residual[careful])
-        left, values, right = _svd(triangle / np.sqrt(emphasis[careful])[:, None, :])
-        # Rank is judged on unit columns; with damping emphasis that needs its own SVD.
-        unit_values = values if norm_memory is None else _svd(triangle)[1]
+        left, values, right, projected, unit_values = _careful_factors(rows, residual, norms, careful, held, emphasis,
+                                                                       norm_memory is not None)
         rank_deficient[careful] = unit_values[:, -1] <= RANK_TOLERANCE * unit_values[:, 0]
         free_columns = np.ones((count, width)) if held is None else (~held).astype(float)
         return cls(norms, gram, gradient, emphasis, factor, broken, rank_deficient, careful, left, values, right,
@@ -116,6 +106,8 @@ class StepSystem:
 
     def restricted(self, keep: np.ndarray) -> "StepSystem":
         """The same system for the runs in ``keep`` only."""
+        if keep.all():
+            return self
         careful_keep = keep[self.careful]
         return StepSystem(
             self.column_norms[keep], self.gram[keep], self.gradient[keep], self.emphasis[keep], self.factor[keep],
@@ -138,6 +130,34 @@ class StepSystem:
             careful_steps[self.rank_deficient[self.careful]] = np.nan
             steps[self.careful] = careful_steps
         return steps / self.column_norms * self.free_columns
+
+
+def _careful_factors(rows: list[np.ndarray], residual: np.ndarray, norms: np.ndarray, careful: np.ndarray,
+                     held: np.ndarray | None, emphasis: np.ndarray, damped: bool) -> tuple[np.ndarray, ...]:
+    """SVD of the triangular factor of [Js | r] for the runs solved carefully (see ``build``).
+
+    Returns:
+        left, values, right: the SVD of R / sqrt(emphasis); projected: Qᵀr; unit_values: the
+        singular values of R itself (the same as ``values`` unless ``damped``).
+    """
+    count, width = residual.shape[0], len(rows)
+    if not careful.any():
+        empty = np.empty((0, width))
+        square = np.empty((0, width, width))
+        return square, empty, square, empty, empty
+    scaled = np.stack([np.broadcast_to(row, residual.shape)[careful] for row in rows], axis=1)
+    scaled = scaled / norms[careful][:, :, None]
+    if held is not None:
+        # Held columns become unit columns on rows of their own (appended observations with
+        # zero residual), which is what the Gram matrix says.
+        scaled = np.concatenate([np.where(held[careful][:, :, None], 0.0, scaled),
+                                 _diagonal(held[careful].astype(float))], axis=2)
+        residual = np.concatenate([residual, np.zeros((count, width))], axis=1)
+    triangle, projected = _triangular_factor(scaled, residual[careful])
+    left, values, right = np.linalg.svd(triangle / np.sqrt(emphasis[careful])[:, None, :])
+    # Rank is judged on unit columns; with damping emphasis that needs its own SVD.
+    unit_values = np.linalg.svd(triangle, compute_uv=False) if damped else values
+    return left, values, right, projected, unit_values
 
 
 def _row_products(first: np.ndarray, second: np.ndarray, count: int) -> np.ndarray:
@@ -198,17 +218,8 @@ def _triangular_factor(scaled: np.ndarray, residual: np.ndarray) -> tuple[np.nda
     than c + 1 the matrix is padded with zero rows, which leaves R and Qᵀr unchanged.
     """
     count, width, rows = scaled.shape
-    if count == 0:
-        return np.empty((0, width, width)), np.empty((0, width))
     augmented = np.concatenate([np.swapaxes(scaled, 1, 2), residual[:, :, None]], axis=2)
     if rows < width + 1:
         augmented = np.concatenate([augmented, np.zeros((count, width + 1 - rows, width + 1))], axis=1)
     triangle = np.linalg.qr(augmented, mode="r")
     return triangle[:, :width, :width], triangle[:, :width, width]
-
-
-def _svd(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    if not len(matrix):
-        width = matrix.shape[-1]
-        return np.empty((0, width, width)), np.empty((0, width)), np.empty((0, width, width))
-    return np.linalg.svd(matrix)
