@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 #: Raise when the content or meaning of a chunk file changes: old caches are then ignored.
-CACHE_FORMAT = 1
+CACHE_FORMAT = 2
 #: Hex digits of the settings hash in the folder name.
 KEY_LENGTH = 20
 
