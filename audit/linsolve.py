@@ -36,7 +36,8 @@ class StepSystem:
         gram: (A, c, c) Gram matrix of the column-scaled Jacobian (unit diagonal).
         gradient: (A, c) scaled Jacobian transposed times the weighted residual.
         emphasis: (A, c) relative damping of each scaled parameter (ones: plain Marquardt).
-        factor: (A, c, c) Cholesky factor of ``gram`` (used for the runs not solved carefully).
+        factor: (c, c, A) Cholesky factor of ``gram``, runs last (used for the runs not solved
+            carefully).
         broken: (A,) True where the derivatives or residuals are not finite.
         rank_deficient: (A,) True where the scaled Jacobian has lost rank.
         careful: (A,) True where the QR/SVD path replaces the normal equations.
@@ -77,25 +78,30 @@ class StepSystem:
                 its step is exactly zero.
         """
         count, width = residual.shape[0], len(rows)
-        raw_gram = np.empty((count, width, width))
+        # Runs last while building: every product and every pivot is then one contiguous row.
+        raw_gram = np.empty((width, width, count))
         for i in range(width):
             for j in range(i, width):
-                raw_gram[:, i, j] = raw_gram[:, j, i] = _row_products(rows[i], rows[j], count)
-        raw_gradient = np.column_stack([_row_products(row, residual, count) for row in rows])
+                raw_gram[i, j] = raw_gram[j, i] = _row_products(rows[i], rows[j], count)
+        raw_gradient = np.stack([_row_products(row, residual, count) for row in rows])
         if held is not None:
-            kept = ~held
-            raw_gram = np.where(kept[:, :, None] & kept[:, None, :], raw_gram, 0.0)
-            np.einsum("aii->ai", raw_gram)[held] = 1.0
-            raw_gradient = np.where(held, 0.0, raw_gradient)
-        norms = np.sqrt(np.einsum("aii->ai", raw_gram))
-        broken = ~(np.isfinite(raw_gram).all(axis=(1, 2)) & np.isfinite(raw_gradient).all(axis=1))
+            kept = ~held.T
+            raw_gram = np.where(kept[:, None, :] & kept[None, :, :], raw_gram, 0.0)
+            np.einsum("iia->ia", raw_gram)[held.T] = 1.0
+            raw_gradient = np.where(held.T, 0.0, raw_gradient)
+        norms = np.sqrt(np.einsum("iia->ia", raw_gram))
+        broken = ~(np.isfinite(raw_gram).all(axis=(0, 1)) & np.isfinite(raw_gradient).all(axis=0))
         dead_column = ~(norms > 0)
-        norms = np.where(dead_column | broken[:, None], 1.0, norms)
-        gram = np.where(broken[:, None, None], np.eye(width), raw_gram / (norms[:, :, None] * norms[:, None, :]))
-        gradient = np.where(broken[:, None], 0.0, raw_gradient / norms)
+        norms = np.where(dead_column | broken, 1.0, norms)
+        gram = raw_gram / norms[:, None, :] / norms[None, :, :]
+        if broken.any():
+            gram[:, :, broken] = np.eye(width)[:, :, None]
+        factor, pivots = cholesky_runs_last(gram)
+        gradient = np.where(broken, 0.0, raw_gradient / norms).T
+        norms, dead_column = norms.T, dead_column.T
+        gram = np.moveaxis(gram, -1, 0)
         emphasis = np.ones((count, width)) if norm_memory is None else (np.maximum(norm_memory, norms) / norms) ** 2
-        factor, pivots = cholesky_batch(gram)
-        careful = (pivots.min(axis=1) < PIVOT_TOLERANCE) & ~dead_column.any(axis=1) & ~broken
+        careful = (pivots.min(axis=0) < PIVOT_TOLERANCE) & ~dead_column.any(axis=1) & ~broken
         rank_deficient = dead_column.any(axis=1) & ~broken
         left, values, right, projected, unit_values = _careful_factors(rows, residual, norms, careful, held, emphasis,
                                                                        norm_memory is not None)
@@ -110,7 +116,7 @@ class StepSystem:
             return self
         careful_keep = keep[self.careful]
         return StepSystem(
-            self.column_norms[keep], self.gram[keep], self.gradient[keep], self.emphasis[keep], self.factor[keep],
+            self.column_norms[keep], self.gram[keep], self.gradient[keep], self.emphasis[keep], self.factor[..., keep],
             self.broken[keep], self.rank_deficient[keep], self.careful[keep],
             self.left[careful_keep], self.singular_values[careful_keep],
             self.right[careful_keep], self.projected[careful_keep], self.free_columns[keep],
@@ -118,11 +124,11 @@ class StepSystem:
 
     def gauss_newton(self) -> np.ndarray:
         """(A, c) Gauss-Newton steps in parameter units; NaN rows where rank was lost."""
-        count, width = self.gradient.shape
-        steps = np.full((count, width), np.nan)
-        fast = ~self.careful & ~self.rank_deficient
-        if fast.any():
-            steps[fast] = cholesky_solve(self.factor[fast], self.gradient[fast])
+        # Every run goes through the Cholesky solve (one pass, no gathering); the careful runs'
+        # results, meaningless where the pivots collapsed, are then replaced.
+        with np.errstate(all="ignore"):
+            steps = cholesky_solve(self.factor, self.gradient.T).T
+        steps[self.rank_deficient] = np.nan
         if self.careful.any():
             with np.errstate(divide="ignore", invalid="ignore"):
                 coefficients = np.einsum("aji,aj->ai", self.left, self.projected) / self.singular_values
@@ -172,43 +178,53 @@ def _diagonal(values: np.ndarray) -> np.ndarray:
     return out
 
 
-def cholesky_batch(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Cholesky factors of A symmetric c×c matrices, vectorised over the batch.
+def cholesky_runs_last(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Cholesky factors of A symmetric c×c matrices stored runs last, (c, c, A).
 
     Never raises: a non-positive pivot is replaced by a tiny one so that the caller can read the
     problem off the returned pivots.
 
     Returns:
-        factor (A, c, c) lower triangular, and pivots (A, c) relative to the matrix diagonal.
+        factor (c, c, A) lower triangular, and pivots (c, A) relative to the matrix diagonal.
     """
-    count, width, _ = matrix.shape
+    width, _, count = matrix.shape
     factor = np.zeros_like(matrix)
-    pivots = np.empty((count, width))
-    diagonal = np.einsum("aii->ai", matrix)
+    pivots = np.empty((width, count))
     tiny = np.finfo(float).tiny
     for j in range(width):
-        pivot = diagonal[:, j] - np.einsum("ak,ak->a", factor[:, j, :j], factor[:, j, :j])
-        scale = np.where(diagonal[:, j] > 0, diagonal[:, j], 1.0)
-        pivots[:, j] = pivot / scale
+        diagonal = matrix[j, j]
+        pivot = diagonal - _sum_over_first(factor[j, :j] * factor[j, :j])
+        scale = np.where(diagonal > 0, diagonal, 1.0)
+        pivots[j] = pivot / scale
         root = np.sqrt(np.maximum(pivot, tiny * scale))
-        factor[:, j, j] = root
+        factor[j, j] = root
         if j + 1 < width:
-            below = matrix[:, j + 1 :, j] - np.einsum("aik,ak->ai", factor[:, j + 1 :, :j], factor[:, j, :j])
-            factor[:, j + 1 :, j] = below / root[:, None]
+            below = matrix[j + 1 :, j] - _sum_over_first(np.swapaxes(factor[j + 1 :, :j], 0, 1) * factor[j, :j, None])
+            factor[j + 1 :, j] = below / root
     return factor, pivots
 
 
 def cholesky_solve(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-    """Solve L·Lᵀ·x = rhs for A systems at once; factor (A, c, c), rhs (A, c)."""
-    width = rhs.shape[1]
+    """Solve L·Lᵀ·x = rhs for A systems at once, runs last: factor (c, c, A), rhs (c, A)."""
+    width = rhs.shape[0]
     forward = np.empty_like(rhs)
     for i in range(width):
-        forward[:, i] = (rhs[:, i] - np.einsum("ak,ak->a", factor[:, i, :i], forward[:, :i])) / factor[:, i, i]
+        forward[i] = (rhs[i] - _sum_over_first(factor[i, :i] * forward[:i])) / factor[i, i]
     solution = np.empty_like(rhs)
     for i in reversed(range(width)):
-        tail = np.einsum("ak,ak->a", factor[:, i + 1 :, i], solution[:, i + 1 :])
-        solution[:, i] = (forward[:, i] - tail) / factor[:, i, i]
+        tail = _sum_over_first(factor[i + 1 :, i] * solution[i + 1 :])
+        solution[i] = (forward[i] - tail) / factor[i, i]
     return solution
+
+
+def _sum_over_first(terms: np.ndarray) -> np.ndarray:
+    """Sum over the first axis, added in order for every run whatever the batch's size (an
+    einsum may pick a different summation order for a different number of runs, and a run's
+    result must not depend on its batch)."""
+    total = np.zeros(terms.shape[1:])
+    for term in terms:
+        total += term
+    return total
 
 
 def _triangular_factor(scaled: np.ndarray, residual: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
