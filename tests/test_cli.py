@@ -60,6 +60,7 @@ def test_fit_table_and_not_converged_exit_1(capsys):
     # tau = 500 with a full step overshoots: the run leaves the basin and does not converge.
     status, out, _ = run(capsys, "fit", BUNDLED, "--start", "tau=500", "--step-factor", "1")
     assert status == 1 and "converged" not in out.split("outcome:")[1].split("\n")[0]
+    assert "next: a smaller --step-factor" in out
 
 
 def test_fit_takes_every_start_override_whether_listed_or_repeated(capsys):

@@ -79,6 +79,9 @@ def run(args: argparse.Namespace) -> int:
         print_json(fit.to_dict())
     else:
         show(fit)
+        if not fit.converged:
+            out.print(f"[dim]next: a smaller --step-factor, --method lm, or 'fitaudit sweep {args.scenario}' to see "
+                      "which starts and step factors reach the best fit[/]", soft_wrap=True)
     return EXIT_OK if fit.converged else EXIT_FINDING
 
 
