@@ -158,7 +158,9 @@ def _show_solutions(result: SweepResult) -> None:
                       f"{np.max(result.solution_shares[..., s]):.1%}")
     out.print(table)
     if shown < len(result.solution_ssr):
-        out.print(f"… and {len(result.solution_ssr) - shown} more in sweep.json")
+        outside = int(np.count_nonzero(~result.solution_inside[shown:]))
+        where = f" ({outside} of them outside the searched ranges)" if outside else ""
+        out.print(f"… and {len(result.solution_ssr) - shown} more in sweep.json{where}")
 
 
 def _show_recommendation(result: SweepResult) -> None:
