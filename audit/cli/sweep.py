@@ -105,7 +105,8 @@ def run(args: argparse.Namespace) -> int:
         def advance(done: int, total: int, computed: int) -> None:
             # The rate counts only starts fitted now, not chunks found in the cache.
             elapsed = max(time.perf_counter() - started, 1e-9)
-            bar.update(task, completed=done, total=total, rate=f"{computed / elapsed:,.0f}/s")
+            rate = f"{computed / elapsed:,.0f}/s" if computed else "from the cache"
+            bar.update(task, completed=done, total=total, rate=rate)
 
         result = run_sweep(scenario, request, plan, folder, on_progress=advance)
     files = write_results(result, folder, "sweep", write_figures)
