@@ -1,7 +1,9 @@
 """Finished chunks on disk, so that an interrupted or repeated sweep computes only what is missing.
 
 A cache folder is named by a hash of everything that decides a chunk's content: the scenario's
-fingerprint (its TOML, data and model files), the sweep's settings and the format below. Each
+fingerprint (its TOML, data and model files), the sweep's settings, the format below and the
+source of the package's computing modules (``code_digest``), so that a changed engine never
+reuses chunks an older one wrote. Each
 chunk is one ``.npz`` file of plain arrays (no pickles), written to a temporary file in the
 same folder and moved into place with ``os.replace``, which is atomic on one file system: a
 crash leaves either the whole chunk or none of it. A file that cannot be read back (a disk
@@ -9,6 +11,7 @@ full during an earlier write, a stray file) is treated as missing and recomputed
 """
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import os
@@ -18,10 +21,21 @@ from pathlib import Path
 
 import numpy as np
 
-#: Raise when the content or meaning of a chunk file changes: old caches are then ignored.
+#: Raise when the layout of a chunk file changes: old caches are then ignored (changes to the
+#: computation are caught by ``code_digest``).
 CACHE_FORMAT = 2
 #: Hex digits of the settings hash in the folder name.
 KEY_LENGTH = 20
+
+
+@functools.cache
+def code_digest() -> str:
+    """Hash of the source of every module that computes or merges chunks: the package's own
+    modules outside the command line and the figures."""
+    digest = hashlib.sha256()
+    for path in sorted(Path(__file__).parent.glob("*.py")):
+        digest.update(path.name.encode() + b"\0" + path.read_bytes())
+    return digest.hexdigest()
 
 
 def cache_key(settings: dict) -> str:

@@ -28,7 +28,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .chunk_cache import ChunkStore, cache_key
+from .chunk_cache import ChunkStore, cache_key, code_digest
 from .equivalent_solutions import Equivalence, find_equivalent
 from .errors import InputError
 from .parallel import ParallelPlan, map_chunks
@@ -150,7 +150,7 @@ class _Sweep:
         self.space = search_space(scenario)
         self.design = make_design(self.space, request.design, request.points, request.seed)
         self.tolerance = SolutionTolerance.for_problem(self.problem, request.tolerance)
-        key = cache_key({"fingerprint": scenario.fingerprint, "version": __version__,
+        key = cache_key({"fingerprint": scenario.fingerprint, "version": __version__, "code": code_digest(),
                          "chunk": request.starts_per_chunk, **asdict(request)})
         self.cache = folder / "cache" / f"sweep-{key}"
         self.on_progress, self.on_chunk = on_progress, on_chunk

@@ -9,6 +9,7 @@ import pytest
 from audit.chunk_cache import ChunkStore
 from audit.parallel import ParallelPlan
 from audit.scenario import load_scenario
+from audit import sweep as sweep_module
 from audit.sweep import SweepRequest, run_sweep
 
 import twin_optima as twin
@@ -66,6 +67,15 @@ def test_a_second_run_reuses_everything_and_other_settings_reuse_nothing(setup, 
     assert comparable(again) == comparable(first)
     other = SweepRequest.from_scenario(scenario, step_factors=(1.0, 0.5))
     changed = run_sweep(scenario, other, ParallelPlan(jobs=1), tmp_path)
+    assert changed.chunks["reused"] == 0 and changed.cache != first.cache
+
+
+def test_a_changed_engine_reuses_nothing(setup, tmp_path, monkeypatch):
+    # Chunks written by other code (a newer engine, an outcome rule changed) must not be reused.
+    scenario, request = setup
+    first = run_sweep(scenario, request, ParallelPlan(jobs=1), tmp_path)
+    monkeypatch.setattr(sweep_module, "code_digest", lambda: "another version of the engine")
+    changed = run_sweep(scenario, request, ParallelPlan(jobs=1), tmp_path)
     assert changed.chunks["reused"] == 0 and changed.cache != first.cache
 
 
