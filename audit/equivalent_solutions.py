@@ -20,8 +20,9 @@ from .problem import Problem
 
 #: Curves count as the same when their weighted difference is below this fraction of the
 #: weighted residuals' norm at the best fit (converged end points agree to about the solver
-#: tolerance, far below it).
+#: tolerance, far below it), or below CURVE_FLOOR of the weighted data's norm (exact data).
 CURVE_TOLERANCE = 1e-3
+CURVE_FLOOR = 1e-9
 #: Two solutions are distinct minima, not points of one flat valley, when some parameter
 #: differs by more than this many asymptotic standard errors at the best fit.
 DISTINCT_STD_ERRORS = 10.0
@@ -58,7 +59,8 @@ def find_equivalent(problem: Problem, params: np.ndarray, ssr_level: np.ndarray,
     candidates = candidates[candidates > 0]
     if len(candidates):
         residuals = problem.residuals(params[np.concatenate([[0], candidates])])
-        limit = CURVE_TOLERANCE * np.linalg.norm(residuals[0])
+        weighted_data = problem.y if problem.sqrt_weights is None else problem.y * problem.sqrt_weights
+        limit = CURVE_TOLERANCE * np.linalg.norm(residuals[0]) + CURVE_FLOOR * np.linalg.norm(weighted_data)
         differences = np.linalg.norm(residuals[1:] - residuals[0], axis=1)
         same_curve[candidates] = (differences <= limit) & _distinct_minima(problem, params[0], params[candidates])
     exchange = [_exchange(problem.names, params[0], params[s], parameter_relative, floor) if same_curve[s] else ""

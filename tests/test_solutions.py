@@ -96,6 +96,17 @@ def test_exchanged_terms_are_the_same_curve_and_named():
     assert found.exchange == ["", "a↔c, b↔d"]
 
 
+def test_exchanged_terms_of_exact_data_are_the_same_curve():
+    # Noise-free data: the best fit's residuals vanish, the exchanged terms (converged only to
+    # about 1e-12, as a solver leaves them) still give its curve.
+    x = np.linspace(0, 10, 50)
+    problem = Problem(lambda x, a, b, c, d: a * np.exp(-b * x) + c * np.exp(-d * x), x,
+                      5.0 * np.exp(-1.3 * x) + 2.0 * np.exp(-0.2 * x), ("a", "b", "c", "d"))
+    params = np.array([[5.0, 1.3, 2.0, 0.2], [2.0, 0.2, 5.0, 1.3 * (1 + 1e-12)]])
+    found = find_equivalent(problem, params, np.array([False, True]), 1e-4, np.full(4, 1e-6))
+    assert list(found.same_curve) == [False, True] and found.exchange[1] == "a↔c, b↔d"
+
+
 def test_mirrored_width_is_named_as_a_sign_change():
     # A Gaussian peak depends on its width only through w², so w and −w give one curve (calculus).
     x = np.linspace(-3, 3, 60)
