@@ -148,9 +148,12 @@ class _ChunkFits:
     iterations: np.ndarray
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class _Refitter:
-    """Draws (or builds) the data of one chunk and refits it; runs inside the workers."""
+    """Draws (or builds) the data of one chunk and refits it; runs inside the workers.
+
+    Compared and hashed by identity (eq=False): its fields hold arrays, and the Dask backend
+    hashes the function it sends."""
 
     problem: Problem
     scheme: Scheme

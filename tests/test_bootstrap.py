@@ -275,6 +275,20 @@ def test_same_results_for_one_and_two_jobs():
     assert np.array_equal(results[0].bca.lower, results[1].bca.lower, equal_nan=True)
 
 
+@pytest.mark.slow
+def test_same_results_on_a_dask_cluster():
+    # The README sends the bootstrap to a Dask scheduler just like the sweep.
+    distributed = pytest.importorskip("distributed")
+    scenario = load_scenario(BUNDLED)
+    local = bootstrap_scenario(scenario, samples=2500, plan=ParallelPlan(jobs=1))
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=2, processes=False,
+                                  dashboard_address=None) as cluster:
+        remote = bootstrap_scenario(scenario, samples=2500,
+                                    plan=ParallelPlan(backend="dask", scheduler=cluster.scheduler_address))
+    assert np.array_equal(local.replicates.params, remote.replicates.params)
+    assert np.array_equal(local.jackknife.params, remote.jackknife.params)
+
+
 def test_step_factor_reaches_the_refits_and_the_result():
     problem = decay_problem(noise_seed=0)
     best = best_fit(problem, [2.5, 7.0])
