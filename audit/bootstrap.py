@@ -41,6 +41,9 @@ MIN_USED = 10
 #: Percentile and BCa intervals at the 95% level need about this many replicates for their ends
 #: to settle (Efron & Tibshirani 1993; value from memory).
 ADVISED_REPLICATES = 1000
+#: Below this many observations a bootstrap resamples too few points to stand beside the
+#: t interval (common practice; the README's cautions say the same).
+FEW_OBSERVATIONS = 20
 
 
 @dataclass
@@ -261,6 +264,13 @@ def _summarise(problem: Problem, best: np.ndarray, asymptotic: Estimates, replic
         mean, spread, percentile = nan, nan, (nan, nan)
         notes.append(f"only {len(used)} of {settings['samples']} refits reached the best fit's solution: "
                      f"too few for any bootstrap statistic (at least {MIN_USED} are needed)")
+    m = problem.n_obs
+    if m < FEW_OBSERVATIONS:
+        shrunk = settings["method"] != "pairs" and not settings["leverage_adjusted"]
+        notes.append(f"only {m} observations: the bootstrap resamples from {m} values, so its spread is rough"
+                     + (f" and, with m − n = {m - n} left for the residuals, shrunk by about sqrt({m - n}/{m}) = "
+                        f"{np.sqrt((m - n) / m):.2f} against the t interval" if shrunk else "")
+                     + f"; below {FEW_OBSERVATIONS} observations read the t and profile intervals, not these")
     if MIN_USED <= len(used) < ADVISED_REPLICATES:
         notes.append(f"the intervals rest on {len(used)} replicates; at least {ADVISED_REPLICATES} are advisable "
                      f"for the ends of a {confidence:.0%} interval to settle")

@@ -85,6 +85,20 @@ def test_residual_bootstrap_of_a_linear_model_gives_ols_errors_times_sqrt_of_m_m
     assert np.all(np.abs(result.std_error - ols_errors) > tolerance)
 
 
+def test_few_observations_are_noted_with_the_shrink_factor_of_the_residual_bootstrap():
+    # Efron & Tibshirani (1993), ch. 9, as above: the residual bootstrap's spread is the OLS one
+    # times sqrt((m − p)/m), here sqrt(7/10) = 0.84; pairs resampling has no such factor.
+    problem, design = linear_problem(m=10)
+    coefficients = np.linalg.lstsq(design, problem.y, rcond=None)[0]
+    residual = run_bootstrap(problem, coefficients, method="residual", samples=200, seed=3)
+    assert any(note.startswith("only 10 observations") and "sqrt(7/10) = 0.84" in note for note in residual.notes)
+    pairs = run_bootstrap(problem, coefficients, method="pairs", samples=200, seed=3)
+    assert any(note.startswith("only 10 observations") and "sqrt" not in note for note in pairs.notes)
+    many, many_design = linear_problem(m=40)
+    plenty = run_bootstrap(many, np.linalg.lstsq(many_design, many.y, rcond=None)[0], samples=200, seed=3)
+    assert not any("observations" in note for note in plenty.notes)
+
+
 def test_weighted_residual_bootstrap_resamples_standardised_residuals():
     problem, design = linear_problem(m=12, weighted=True)
     root = np.sqrt(problem.weights)
