@@ -3,10 +3,9 @@
 A cache folder is named by a hash of everything that decides a chunk's content: the scenario's
 fingerprint (its TOML, data and model files), the sweep's settings, the format below and the
 source of the package's computing modules (``code_digest``), so that a changed engine never
-reuses chunks an older one wrote. Each
-chunk is one ``.npz`` file of plain arrays (no pickles), written to a temporary file in the
-same folder and moved into place with ``os.replace``, which is atomic on one file system: a
-crash leaves either the whole chunk or none of it. A file that cannot be read back (a disk
+reuses chunks an older one wrote. Each chunk is one ``.npz`` file of plain arrays (no pickles),
+written to a temporary file in the same folder and moved into place with ``os.replace``, which
+is atomic on one file system: a crash leaves either the whole chunk or none of it. A file that cannot be read back (a disk
 full during an earlier write, a stray file) is treated as missing and recomputed.
 """
 from __future__ import annotations

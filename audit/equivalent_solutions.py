@@ -36,7 +36,8 @@ class Equivalence:
         same_curve: (S,) True where the solution gives the best fit's curve and is a distinct
             minimum (row 0 itself is False).
         exchange: (S,) how the parameters map onto the best fit's, e.g. "a↔c, b↔d" or
-            "−w", where they are the same values exchanged or with a sign changed; "" otherwise.
+            "w → −w", where they are the same values exchanged or with a sign changed; ""
+            otherwise.
     """
 
     same_curve: np.ndarray
@@ -59,8 +60,7 @@ def find_equivalent(problem: Problem, params: np.ndarray, ssr_level: np.ndarray,
     candidates = candidates[candidates > 0]
     if len(candidates):
         residuals = problem.residuals(params[np.concatenate([[0], candidates])])
-        weighted_data = problem.y if problem.sqrt_weights is None else problem.y * problem.sqrt_weights
-        limit = CURVE_TOLERANCE * np.linalg.norm(residuals[0]) + CURVE_FLOOR * np.linalg.norm(weighted_data)
+        limit = CURVE_TOLERANCE * np.linalg.norm(residuals[0]) + CURVE_FLOOR * np.linalg.norm(problem.weighted_y)
         differences = np.linalg.norm(residuals[1:] - residuals[0], axis=1)
         same_curve[candidates] = (differences <= limit) & _distinct_minima(problem, params[0], params[candidates])
     exchange = [_exchange(problem.names, params[0], params[s], parameter_relative, floor) if same_curve[s] else ""

@@ -302,9 +302,8 @@ def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
 
     Non-finite or runaway parameters, an infinite or blown-up SSR, a NaN SSR past
     OVERFLOW_FACTOR typical magnitudes: diverged. A NaN SSR closer in: the model is undefined
-    there (model error). A settled
-    run whose Jacobian lost rank (Levenberg-Marquardt only; Gauss-Newton stops at the loss):
-    singular. Otherwise settled: converged. Reversing steps for OSCILLATION_WINDOW iterations
+    there (model error). A settled run whose Jacobian lost rank (Levenberg-Marquardt only;
+    Gauss-Newton stops at the loss): singular. Otherwise settled: converged. Reversing steps for OSCILLATION_WINDOW iterations
     without the SSR falling below its value two steps back: oscillating.
     """
     runaway = ~np.isfinite(state.params).all(axis=1) | (np.abs(state.params) > state.bound).any(axis=1)

@@ -97,6 +97,11 @@ class Problem:
     def n_obs(self) -> int:
         return self.y.shape[0]
 
+    @property
+    def weighted_y(self) -> np.ndarray:
+        """(m,) observations times sqrt(w): the weighted residuals of a model that is zero."""
+        return self.y if self.sqrt_weights is None else self.y * self.sqrt_weights
+
     def typical_magnitude(self, params: np.ndarray) -> np.ndarray:
         """Typical magnitude of each parameter, shaped like ``params`` (..., n).
 

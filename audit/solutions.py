@@ -59,8 +59,7 @@ class SolutionTolerance:
     def for_problem(cls, problem, solver_tolerance: float) -> "SolutionTolerance":
         """Tolerances for ``problem`` (its typical magnitudes and data) and the solver's tolerance."""
         typical = problem.typical if problem.typical is not None else np.ones(problem.n_params)
-        weighted = problem.y if problem.sqrt_weights is None else problem.y * problem.sqrt_weights
-        total = float(weighted @ weighted)
+        total = float(problem.weighted_y @ problem.weighted_y)
         return cls(parameter_relative=max(MIN_PARAMETER_TOLERANCE, PARAMETER_TOLERANCE_FACTOR * solver_tolerance),
                    floor=FLOOR_FRACTION * typical, ssr_relative=SSR_TOLERANCE,
                    ssr_floor=max(SSR_FLOOR_FRACTION * total, np.finfo(float).tiny))

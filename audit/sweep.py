@@ -268,24 +268,27 @@ class _Sweep:
             level[0] = False
         equivalence = find_equivalent(self.problem, merged.params, level, self.tolerance.parameter_relative,
                                       self.tolerance.floor)
-        symmetric_inside = equivalence.same_curve & self._inside(merged.params)
+        solution_inside = self._inside(merged.params)
+        symmetric_inside = equivalence.same_curve & solution_inside
+        solution_shares = tally.solution_counts / starts
         return SweepResult(
             names=space.names, lower=space.lower, upper=space.upper, log=space.log, design=request.design,
             points=starts, seed=request.seed, step_factors=np.array(request.step_factors), methods=request.methods,
             tolerance=request.tolerance, max_iterations=request.max_iterations, counts=tally.counts, shares=shares,
             iterations_median=median, iterations_p90=p90, solution_params=merged.params, solution_ssr=merged.ssr,
-            solution_shares=tally.solution_counts / starts, solution_level_with_best=level,
-            solution_inside=self._inside(merged.params), solution_same_curve=equivalence.same_curve,
+            solution_shares=solution_shares, solution_level_with_best=level,
+            solution_inside=solution_inside, solution_same_curve=equivalence.same_curve,
             solution_exchange=equivalence.exchange, start=self.scenario.start, start_distance=start_distance,
             region_level=REGION_LEVEL, region_min_starts=REGION_MIN_STARTS, region_radius=radius,
             region_lower=lower, region_upper=upper, region_starts=inside, region_share=share_inside,
             start_inside=inside_parameter.all(axis=-1), start_inside_parameter=inside_parameter,
             recommended=recommended, recommendation_reason=reason, maps=maps, cases=cases,
             chunks=dict(self.counters), cache=str(self.cache),
-            warnings=self._warnings(merged, design_best, level & ~symmetric_inside, starts)
-            + _symmetry_notes(equivalence, symmetric_inside, tally.solution_counts / starts, recommended, request))
+            warnings=self._warnings(merged, design_best, level & ~symmetric_inside, solution_inside, starts)
+            + _symmetry_notes(equivalence, symmetric_inside, solution_shares, recommended, request))
 
-    def _warnings(self, merged: Catalogue, design_best: Catalogue, level: np.ndarray, starts: int) -> list[str]:
+    def _warnings(self, merged: Catalogue, design_best: Catalogue, level: np.ndarray, inside: np.ndarray,
+                  starts: int) -> list[str]:
         request, notes = self.request, []
         if request.design == "grid" and starts != request.points:
             notes.append(f"a full grid of {self.design.per_axis} points per axis has {starts} starts "
@@ -301,7 +304,6 @@ class _Sweep:
                 self.tolerance.ssr_relative * abs(design_best.ssr[0]) + self.tolerance.ssr_floor):
             notes.append("a basin map found a lower SSR than any design start; the maps are centred on the "
                          "design's best, so rerun with more design points")
-        inside = self._inside(merged.params)
         outside_lower = ~inside & (merged.ssr < merged.ssr[0]) if len(merged) else inside
         if np.any(outside_lower | (level & ~inside)):
             notes.append(f"{int(np.sum(outside_lower | (level & ~inside)))} solution(s) outside the searched ranges "
