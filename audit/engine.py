@@ -154,7 +154,7 @@ def fit_batch(
 
 def block_size(problem: Problem, n_free: int) -> int:
     """Runs per block for ``problem`` with ``n_free`` fitted parameters."""
-    rows = n_free if problem.jacobian is not None else 2 * n_free
+    rows = n_free if problem.has_jacobian else 2 * n_free
     fewest, most = BLOCK_RUNS
     return int(np.clip(BLOCK_ELEMENTS // (problem.n_obs * (rows + 1)), fewest, most))
 
