@@ -234,7 +234,8 @@ def analyse(problem: Problem, params: np.ndarray, *, lower: np.ndarray, upper: n
                      settings.profile_reach, fallback=np.maximum(np.abs(params), typical), log_axis=log_axis)
     walk = RefitSettings(step_factor=solver.step_factors[0], tolerance=solver.tolerance,
                         max_iterations=solver.max_iterations)
-    profiles = profile_all(problem, params, estimates.ssr, grid, settings.confidence, walk, plan, on_step)
+    profiles = profile_all(problem, params, estimates.ssr, grid, settings.confidence, walk, plan, on_step,
+                           lower_bound=lower, upper_bound=upper)
     result = Identifiability(
         names=names, params=params, fit_outcome=fit_outcome, singular_raw=spectrum["raw"],
         singular_scaled=spectrum["scaled"], condition_raw=spectrum["condition_raw"],

@@ -1,4 +1,4 @@
-"""Profile likelihood: fix one parameter on a grid, refit the others, record the residual sum of squares.
+"""Profile likelihood: fix one parameter at a time, refit the others, record the residual sum of squares.
 
 For parameter j the profile is SSR_j(θ) = min over the other parameters of SSR with a_j = θ.
 Its confidence interval at level 1 − α is the set where
@@ -6,16 +6,16 @@ Its confidence interval at level 1 − α is the set where
     SSR_j(θ) ≤ SSR_min · (1 + F(1, m − n; 1 − α) / (m − n)),
 
 which for a model linear in its parameters is exactly the Student t interval (F(1, ν) = t²).
-A side on which the profile never rises above that level, within the grid, is open: the data
-do not bound the parameter there (practically non-identifiable on that side).
+A side on which the profile stays below that level up to the parameter's range bound is open:
+the data do not bound the parameter there (practically non-identifiable on that side).
 
-The walk: every side of every profile starts at the best fit and moves outward one grid point
-per step; each new point is warm-started from the refit of its neighbour. One step is one
-batch across all parameters and both directions (each run holds its own parameter fixed through
-``fit_batch``'s per-run mask of free parameters); runs that Gauss-Newton does not settle are retried
-with Levenberg-Marquardt in a second call. The crossing of the threshold is interpolated in
-the signed root of SSR − SSR_min, which is linear in θ for a linear model, so the interval is
-exact there and second-order accurate elsewhere.
+Each side of every profile is walked outward from the best fit (``audit.profile_walk``: the
+planned grid, then doubling steps up to the range bound), all sides of all parameters in one
+``fit_batch`` call per step, each run holding its own parameter fixed through the per-run mask of
+free parameters. Every side that crossed the threshold then has its crossing refined by
+root-finding on refits (``audit.profile_ends``), again all sides together, to about ten
+significant digits. A side is open only at its range bound, where the refits failed, or (for a
+parameter without a range) after the walk's doubling steps ran out.
 
 Parameters on a logarithmic axis get a geometric grid (equal ratios, not equal differences), so
 a side that runs towards zero or over decades is walked evenly in log θ.
@@ -28,28 +28,20 @@ from functools import partial
 import numpy as np
 from scipy import stats
 
-from .engine import RefitSettings, fit_batch
+from .engine import RefitSettings
 from .jsonable import jsonable
 from .outcomes import Outcome
 from .parallel import ParallelPlan, map_chunks
 from .problem import Problem
-
-#: A side stops walking once its SSR has risen this many times as far above SSR_min as the
-#: threshold does (three asymptotic half-widths for a quadratic profile): the interval is
-#: closed well before, and far-out refits are the slow, fragile ones.
-CEILING_RISES = 9.0
-#: A side also stops after this many refits in a row that failed (the region beyond is one
-#: where the model or the remaining parameters break down).
-FAILURES_IN_A_ROW = 3
-#: Outcome code of grid points that were not refitted because their side had stopped.
-NOT_WALKED = -1
+from .profile_ends import ProfileEnds, refine_crossings
+from .profile_walk import AT_BOUND, CEILING_RISES, CROSSED, FITS_FAILED, NOT_WALKED, SideWalk, walk_sides
 
 #: What the end of each side of a profile means.
 SIDE_STATUS: dict[str, str] = {
     "closed": "the profile rose above the threshold: the interval ends here",
     "open_at_bound": "the profile stayed below the threshold up to the parameter's range bound",
-    "open_at_grid_end": "the profile stayed below the threshold to the end of the grid",
     "open_fits_failed": "the refits failed before the profile rose above the threshold",
+    "open_no_bound": "the parameter has no range and the profile stayed below the threshold for 10^18 grid steps",
 }
 
 
@@ -80,14 +72,21 @@ class Profiles:
         confidence: level of the intervals.
         f_quantile: F(1, m − n) quantile at ``confidence``.
         threshold: SSR_min·(1 + f_quantile / dof), the SSR level that bounds the interval.
-        values: (n, P) grid of each profile in increasing order, the estimate in the middle.
+        values: (n, P) pinned values of each profile in increasing order, the estimate in the
+            middle: each side's planned grid, then the points its walk added beyond the grid
+            (NaN in slots of sides that stopped sooner).
         log: (n,) True where that grid is geometric (a parameter on a logarithmic axis).
-        ssr: (n, P) profile SSR at each grid value; NaN where the refit failed.
+        ssr: (n, P) profile SSR at each value; NaN where the refit failed or was not run.
         params: (n, P, n) all parameters at each profile point (the others refitted).
         outcome: (n, P) ``Outcome`` of each refit (the estimate itself counts as converged),
-            ``NOT_WALKED`` beyond the point where a side stopped (see ``CEILING_RISES``).
-        lower, upper: (n,) profile interval ends; NaN on an open side.
+            ``NOT_WALKED`` beyond the point where a side stopped (see
+            ``profile_walk.CEILING_RISES``).
+        lower, upper: (n,) profile interval ends, refined by root-finding on refits; NaN on an
+            open side.
         lower_status, upper_status: (n,) keys of ``SIDE_STATUS``.
+        end_ssr: (n, 2) SSR of the refits at the lower and upper ends (the threshold, to the
+            refinement's tolerance); NaN on an open side.
+        end_params: (n, 2, n) all parameters at those ends.
         lowest_ssr: smallest SSR met on any profile (below ``ssr_min`` when the best fit was
             not the least-squares minimum).
         lowest_params: (n,) parameters where ``lowest_ssr`` was met.
@@ -109,6 +108,8 @@ class Profiles:
     upper: np.ndarray
     lower_status: np.ndarray
     upper_status: np.ndarray
+    end_ssr: np.ndarray
+    end_params: np.ndarray
     lowest_ssr: float
     lowest_params: np.ndarray
 
@@ -133,6 +134,9 @@ class Profiles:
                 "name": name, "estimate": self.estimate[j],
                 "lower": self.lower[j], "upper": self.upper[j],
                 "lower_status": self.lower_status[j], "upper_status": self.upper_status[j],
+                "end_ssr": self.end_ssr[j],
+                "end_others": [{other: self.end_params[j, side, k] for k, other in enumerate(self.names) if k != j}
+                               for side in range(2)],
                 "values": self.values[j], "log_grid": self.log[j], "ssr": self.ssr[j],
                 "outcome": [_label(code) for code in self.outcome[j]],
                 "others": {other: self.params[j, :, k] for k, other in enumerate(self.names) if k != j},
@@ -172,12 +176,18 @@ def plan_grid(estimate: np.ndarray, half_width: np.ndarray, lower_bound: np.ndar
     even = estimate[:, None, None] + (ends - estimate[:, None])[:, :, None] * fraction
     with np.errstate(divide="ignore", invalid="ignore"):
         geometric = estimate[:, None, None] * (ends / estimate[:, None])[:, :, None] ** fraction
-    return ProfileGrid(values=np.where(log[:, None, None], geometric, even), clipped=clipped, log=log)
+    values = np.where(log[:, None, None], geometric, even)
+    # A clipped side ends exactly on its bound, so that the walk knows it got there.
+    values[..., -1] = np.where(clipped, np.stack([lower_bound, upper_bound], axis=1), values[..., -1])
+    return ProfileGrid(values=values, clipped=clipped, log=log)
+
+
 
 
 def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: ProfileGrid, confidence: float,
                 walk: RefitSettings = RefitSettings(), plan: ParallelPlan | None = None,
-                on_step=None) -> Profiles:
+                on_step=None, lower_bound: np.ndarray | None = None,
+                upper_bound: np.ndarray | None = None) -> Profiles:
     """Walk every profile outward from the best fit and find where each crosses the threshold.
 
     Args:
@@ -188,8 +198,10 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
         walk: solver settings of the refits.
         plan: how to spread the parameters over processes (default: this process only, one
             batch per step for all parameters).
-        on_step: called as on_step(done, total) after each completed step (in this process) or
-            each finished group of parameters (with several processes).
+        on_step: called as on_step(done, total) after each completed grid step (in this
+            process) or each finished group of parameters (with several processes).
+        lower_bound, upper_bound: (n,) range ends the walk may reach, NaN where none
+            (default: none).
     """
     n, dof = problem.n_params, problem.n_obs - problem.n_params
     steps = grid.values.shape[2]
@@ -197,32 +209,68 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
     groups = [group for group in np.array_split(np.arange(n), min(plan.workers, n)) if len(group)]
     f_quantile = float(stats.f.ppf(confidence, 1, dof))
     threshold = ssr_min * (1 + f_quantile / dof)
-    ceiling = ssr_min + CEILING_RISES * (threshold - ssr_min)
-    walker = partial(_walk, problem, estimate, grid.values, walk, ceiling)
-    side_ssr = np.full((n, 2, steps), np.nan)
-    side_params = np.full((n, 2, steps, n), np.nan)
-    side_outcome = np.full((n, 2, steps), NOT_WALKED, dtype=np.int8)
+    no_bound = np.full(n, np.nan)
+    bounds = np.stack([np.nan_to_num(no_bound if lower_bound is None else lower_bound, nan=-np.inf),
+                       np.nan_to_num(no_bound if upper_bound is None else upper_bound, nan=np.inf)], axis=1)
+    walker = partial(_profile_group, problem, estimate, ssr_min, threshold, grid, bounds, walk)
     if len(groups) == 1:
-        found = [walker(groups[0], on_step=None if on_step is None else partial(on_step, total=steps))]
+        found = [walker(groups[0], on_step=None if on_step is None else
+                        lambda done: on_step(min(done, steps), total=steps))]
     else:
         found = []
         for done, result in enumerate(map_chunks(walker, groups, plan), start=1):
             found.append(result)
             if on_step is not None:
                 on_step(done, total=len(groups))
-    for group, (ssr, params, outcome) in zip(groups, found):
-        side_ssr[group], side_params[group], side_outcome[group] = ssr, params, outcome
+    return _assemble(problem, estimate, ssr_min, dof, confidence, f_quantile, threshold, grid, groups, found)
 
-    ends, status = _crossings(estimate, ssr_min, threshold, grid, side_ssr)
-    order = np.concatenate([np.arange(steps)[::-1], [-1], np.arange(steps)])
-    side = np.concatenate([np.zeros(steps, dtype=int), [0], np.ones(steps, dtype=int)])
+
+def _profile_group(problem: Problem, estimate: np.ndarray, ssr_min: float, threshold: float, grid: ProfileGrid,
+                   bounds: np.ndarray, walk: RefitSettings, group: np.ndarray,
+                   on_step=None) -> tuple[SideWalk, ProfileEnds]:
+    """Walk both sides of the parameters in ``group`` and refine their crossings (rows: parameter
+    group[r // 2], side r % 2)."""
+    pinned, sides = np.repeat(group, 2), np.tile([0, 1], len(group))
+    ceiling = ssr_min + CEILING_RISES * (threshold - ssr_min)
+    walked = walk_sides(problem, estimate, pinned, grid.values[pinned, sides], bounds[pinned, sides],
+                        grid.log[pinned], threshold, ceiling, walk, on_step)
+    return walked, refine_crossings(problem, estimate, ssr_min, threshold, pinned, walked, walk)
+
+
+def _assemble(problem: Problem, estimate: np.ndarray, ssr_min: float, dof: int, confidence: float,
+              f_quantile: float, threshold: float, grid: ProfileGrid, groups: list[np.ndarray],
+              found: list[tuple[SideWalk, ProfileEnds]]) -> Profiles:
+    """Lay the groups' sides out as profiles in increasing order, the estimate in the middle."""
+    n, steps = problem.n_params, grid.values.shape[2]
+    walked_slots = max(int(np.max(np.flatnonzero((walked.outcome != NOT_WALKED).any(axis=0)), initial=-1)) + 1
+                       for walked, _ in found)
+    slots = max(steps, walked_slots)
+    side_values = np.full((n, 2, slots), np.nan)
+    side_ssr = np.full((n, 2, slots), np.nan)
+    side_params = np.full((n, 2, slots, n), np.nan)
+    side_outcome = np.full((n, 2, slots), NOT_WALKED, dtype=np.int8)
+    ends, end_ssr, end_params = np.full((n, 2), np.nan), np.full((n, 2), np.nan), np.full((n, 2, n), np.nan)
+    stop = np.zeros((n, 2), dtype=np.int8)
+    for group, (walked, refined) in zip(groups, found):
+        side_values[group] = walked.values[:, :slots].reshape(len(group), 2, slots)
+        side_ssr[group] = walked.ssr[:, :slots].reshape(len(group), 2, slots)
+        side_params[group] = walked.params[:, :slots].reshape(len(group), 2, slots, n)
+        side_outcome[group] = walked.outcome[:, :slots].reshape(len(group), 2, slots)
+        stop[group] = walked.stop.reshape(len(group), 2)
+        ends[group] = refined.value.reshape(len(group), 2)
+        end_ssr[group] = refined.ssr.reshape(len(group), 2)
+        end_params[group] = refined.params.reshape(len(group), 2, n)
+    status = np.select([stop == CROSSED, stop == AT_BOUND, stop == FITS_FAILED],
+                       ["closed", "open_at_bound", "open_fits_failed"], "open_no_bound").astype(object)
+    order = np.concatenate([np.arange(slots)[::-1], [-1], np.arange(slots)])
+    side = np.concatenate([np.zeros(slots, dtype=int), [0], np.ones(slots, dtype=int)])
 
     def along(per_side: np.ndarray, centre) -> np.ndarray:
         picked = per_side[:, side, np.maximum(order, 0)]
-        picked[:, steps] = centre
+        picked[:, slots] = centre
         return picked
 
-    values = along(grid.values, estimate)
+    values = along(side_values, estimate)
     ssr = along(side_ssr, ssr_min)
     params = along(side_params, estimate)
     outcome = along(side_outcome, Outcome.CONVERGED)
@@ -231,109 +279,9 @@ def profile_all(problem: Problem, estimate: np.ndarray, ssr_min: float, grid: Pr
         names=problem.names, estimate=estimate, ssr_min=float(ssr_min), dof=dof, confidence=confidence,
         f_quantile=f_quantile, threshold=float(threshold), values=values, log=grid.log, ssr=ssr, params=params,
         outcome=outcome, lower=ends[:, 0], upper=ends[:, 1], lower_status=status[:, 0], upper_status=status[:, 1],
-        lowest_ssr=float(ssr.flat[lowest]), lowest_params=params.reshape(-1, n)[lowest],
+        end_ssr=end_ssr, end_params=end_params, lowest_ssr=float(ssr.flat[lowest]),
+        lowest_params=params.reshape(-1, n)[lowest],
     )
-
-
-def _walk(problem: Problem, estimate: np.ndarray, values: np.ndarray, walk: RefitSettings,
-          ceiling: float, group: np.ndarray, on_step=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Walk the profiles of the parameters in ``group`` (both sides), one batch per step.
-
-    A side stops after its first settled point above ``ceiling``, or after
-    ``FAILURES_IN_A_ROW`` failed refits in a row.
-
-    Returns (ssr, params, outcome) of shapes (g, 2, K), (g, 2, K, n), (g, 2, K).
-    """
-    n, steps = problem.n_params, values.shape[2]
-    pinned = np.repeat(group, 2)                                   # run r: parameter pinned[r], side r % 2
-    sides = np.tile([0, 1], len(group))
-    ssr = np.full((len(pinned), steps), np.nan)
-    params = np.full((len(pinned), steps, n), np.nan)
-    outcome = np.full((len(pinned), steps), NOT_WALKED, dtype=np.int8)
-    last_good = np.broadcast_to(estimate, (len(pinned), n)).copy()
-    active = np.ones(len(pinned), dtype=bool)
-    failures = np.zeros(len(pinned), dtype=np.int64)
-    for k in range(steps):
-        rows = np.flatnonzero(active)
-        if not len(rows):
-            break
-        value = values[pinned[rows], sides[rows], k]
-        start = last_good[rows].copy()
-        start[np.arange(len(rows)), pinned[rows]] = value
-        if n == 1:
-            found, found_ssr, codes = start, problem.ssr(start), np.full(len(rows), Outcome.CONVERGED)
-        else:
-            found, found_ssr, codes = _refit(problem, start, pinned[rows], walk)
-        settled = codes == Outcome.CONVERGED
-        ssr[rows[settled], k] = found_ssr[settled]
-        params[rows[settled], k] = found[settled]
-        outcome[rows, k] = codes
-        last_good[rows[settled]] = found[settled]
-        failures[rows] = np.where(settled, 0, failures[rows] + 1)
-        active[rows[settled & (found_ssr > ceiling)]] = False
-        active[failures >= FAILURES_IN_A_ROW] = False
-        if on_step is not None:
-            on_step(k + 1)
-    if on_step is not None:
-        on_step(steps)
-    shape = (len(group), 2)
-    return ssr.reshape(*shape, steps), params.reshape(*shape, steps, n), outcome.reshape(*shape, steps)
-
-
-def _refit(problem: Problem, start: np.ndarray, pinned: np.ndarray,
-           walk: RefitSettings) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Refit every run with its own parameter ``pinned`` (B,) held at its start value.
-
-    The settings' method first (Gauss-Newton by default), then Levenberg-Marquardt where it
-    failed. A Levenberg-Marquardt run that settles on a rank-deficient Jacobian still sits at the
-    smallest SSR along its valley, so it counts as settled for the profile.
-    """
-    free = np.arange(problem.n_params)[None, :] != pinned[:, None]
-    options = dict(tol=walk.tolerance, max_iter=walk.max_iterations)
-    first = fit_batch(problem, start, walk.step_factor, free=free, method=walk.method, **options)
-    found, ssr, codes = first.params.copy(), first.ssr.copy(), first.outcome.copy()
-    retry = np.flatnonzero(codes != Outcome.CONVERGED)
-    if len(retry):
-        second = fit_batch(problem, start[retry], 1.0, free=free[retry], method="lm", **options)
-        settled = np.isin(second.outcome, (Outcome.CONVERGED, Outcome.SINGULAR))
-        codes[retry] = np.where(settled, Outcome.CONVERGED, second.outcome)
-        found[retry] = second.params
-        ssr[retry] = second.ssr
-    return found, ssr, codes
-
-
-def _crossings(estimate: np.ndarray, ssr_min: float, threshold: float, grid: ProfileGrid,
-               side_ssr: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(n, 2) interval ends and (n, 2) side statuses from the per-side profiles (n, 2, K).
-
-    The first grid point above the threshold closes a side; the crossing is interpolated
-    between it and the last settled point before it (or the estimate), linearly in
-    sqrt(SSR − SSR_min).
-    """
-    n, _, steps = side_ssr.shape
-    above = np.where(np.isfinite(side_ssr), side_ssr > threshold, False)
-    closed = above.any(axis=2)
-    first = np.argmax(above, axis=2)                                            # (n, 2)
-    index = np.arange(steps)
-    before = np.isfinite(side_ssr) & (index < first[..., None])
-    previous = np.where(before.any(axis=2), steps - 1 - np.argmax(before[..., ::-1], axis=2), -1)
-    value_at = np.concatenate([np.broadcast_to(estimate[:, None, None], (n, 2, 1)), grid.values], axis=2)
-    ssr_at = np.concatenate([np.full((n, 2, 1), ssr_min), side_ssr], axis=2)
-
-    def pick(array: np.ndarray, where: np.ndarray) -> np.ndarray:
-        return np.take_along_axis(array, (where + 1)[..., None], axis=2)[..., 0]
-
-    inner_value, outer_value = pick(value_at, previous), pick(value_at, first)
-    inner_root = np.sqrt(np.maximum(pick(ssr_at, previous) - ssr_min, 0.0))
-    outer_root = np.sqrt(np.maximum(pick(ssr_at, first) - ssr_min, 0.0))
-    target = np.sqrt(max(threshold - ssr_min, 0.0))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        share = np.clip((target - inner_root) / (outer_root - inner_root), 0.0, 1.0)
-    ends = np.where(closed, inner_value + share * (outer_value - inner_value), np.nan)
-    last_failed = ~np.isfinite(side_ssr[:, :, -1])
-    status = np.where(closed, "closed", np.where(last_failed, "open_fits_failed",
-                                                  np.where(grid.clipped, "open_at_bound", "open_at_grid_end")))
-    return ends, status.astype(object)
 
 
 def _label(code: int) -> str:
