@@ -30,9 +30,12 @@ parameter:
   rank check        a zero singular value at the fit and at random points in the ranges
                     means no data of this design can separate the parameters (structural)
   profiles          each parameter fixed on a grid reaching well past its asymptotic interval
-                    (clipped to its range), the others refitted; the profile interval is where
-                    the SSR stays below SSR_min*(1 + F(1, m-n)/(m-n)). A side that never
-                    rises above that level is OPEN: the data do not bound the parameter there.
+                    (clipped to its range), the others refitted; a side still below the level
+                    SSR_min*(1 + F(1, m-n)/(m-n)) at the grid's end walks on in doubling steps
+                    up to the range bound. Each interval end is where the profile crosses that
+                    level, found by root-finding on refits (about ten significant digits). A
+                    side that stays below the level up to the range bound is OPEN: the data do
+                    not bound the parameter there (also reported: refits that failed first).
 
 Exit status: 0 every parameter identifiable, 1 something flagged (structural
 non-identifiability, an open profile interval, or a profile that beat the best fit), 2 bad input."""
@@ -111,7 +114,7 @@ def show(result: Identifiability) -> None:
                       _end(profiles.upper[j], profiles.upper_status[j]))
     out.print(table)
     for status in sorted({*profiles.lower_status, *profiles.upper_status} - {"closed"}):
-        out.print(f"  {status.replace('_', ' ')}: {SIDE_STATUS[status]}")
+        out.print(f"  {OPEN_SIDE[status]}: {SIDE_STATUS[status]}")
     for finding in result.findings:
         colour = "red" if finding["level"] == "flag" else "yellow"
         out.print(f"[{colour}]{finding['level']}[/]: {finding['text']}", soft_wrap=True)
@@ -134,8 +137,10 @@ def _show_collinearity(result: Identifiability) -> None:
     out.print(f"largest identifiable subsets: {subsets}")
 
 
+#: How an open side reads in the intervals table (the meanings are printed below it).
+OPEN_SIDE = {"open_at_bound": "open (range bound)", "open_fits_failed": "open (fits failed)",
+             "open_no_bound": "open (no range)"}
+
+
 def _end(value: float, status: str) -> str:
-    if status == "closed":
-        return number(value, 6)
-    return "open (bound)" if status == "open_at_bound" else "open (grid)" if status == "open_at_grid_end" \
-        else "open (fits failed)"
+    return number(value, 8) if status == "closed" else OPEN_SIDE[status]

@@ -1,7 +1,8 @@
 """Figures of the identifiability stage, drawn from an ``Identifiability`` result only.
 
-* ``profiles``: each parameter's profile SSR against its value, the threshold line, the
-  asymptotic interval (dashed) and the profile interval (solid bar; an arrow where it is open);
+* ``profiles``: each parameter's profile SSR against its walked values, the threshold line, the
+  asymptotic interval (dashed) and the profile interval (solid bar between the refined ends,
+  each marked where its refit met the threshold; an arrow to the walk's last point where open);
 * ``correlation``: the correlation matrix as an annotated heat map;
 * ``weak_directions``: the loadings of the weakest directions as bars (negative hatched);
 * ``collinearity``: collinearity index of every subset against its size, with the limit.
@@ -70,12 +71,12 @@ def _profiles(result: Identifiability, folder: Path) -> list[Path]:
             if np.isfinite(bound):
                 axis.axvline(bound, color=ASYMPTOTIC, linestyle="--", linewidth=1.0)
         axis.axvline(result.params[j], color=ASYMPTOTIC, linewidth=0.6, alpha=0.6)
-        _profile_interval(axis, profiles, j, values)
+        _profile_interval(axis, profiles, j, walked_values(profiles, j))
         top = profiles.ssr_min + PROFILE_HEADROOM * rise if rise > 0 else np.nanmax(ssr)
         bottom = min(profiles.ssr_min, np.nanmin(ssr)) - 0.15 * (top - profiles.ssr_min)
         if np.isfinite(top) and top > bottom:
             axis.set_ylim(bottom, top)
-        walked = values[profiles.outcome[j] != NOT_WALKED]
+        walked = walked_values(profiles, j)
         if walked.max() > walked.min():
             axis.set_xlim(walked.min(), walked.max())
         axis.set_title(name, fontsize=10, loc="right")
@@ -88,20 +89,31 @@ def _profiles(result: Identifiability, folder: Path) -> list[Path]:
             axis.xaxis.set_minor_formatter(NullFormatter())
     axes[0].plot([], [], color=ASYMPTOTIC, linestyle="--", label="asymptotic interval")
     axes[0].plot([], [], color=EMPIRICAL, linewidth=4, solid_capstyle="butt", label="profile interval")
-    figure.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncol=5, fontsize=8,
+    axes[0].plot([], [], linestyle="none", marker="|", markersize=12, markeredgewidth=2, color=THRESHOLD,
+                 label="refined end")
+    figure.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncol=6, fontsize=8,
                   frameon=False)
     figure.suptitle("Profile likelihood: SSR with each parameter fixed, the others refitted", fontsize=11)
     return save(figure, folder, "identifiability-profiles")
 
 
+def walked_values(profiles, j: int) -> np.ndarray:
+    """Parameter j's profile values that were refitted (the estimate included), increasing."""
+    return profiles.values[j][profiles.outcome[j] != NOT_WALKED]
+
+
 def _profile_interval(axis, profiles, j: int, values: np.ndarray) -> None:
-    """The profile interval as a bar on the threshold line; an arrow to the grid's end where open."""
+    """The profile interval as a bar on the threshold line between the refined ends (marked at
+    their refits' SSR); an arrow to the walk's last point where a side is open."""
     level = profiles.threshold
     ends = []
-    for end, status, edge, text_side in ((profiles.lower[j], profiles.lower_status[j], values[0], "left"),
-                                         (profiles.upper[j], profiles.upper_status[j], values[-1], "right")):
+    for side, (end, status, edge, text_side) in enumerate((
+            (profiles.lower[j], profiles.lower_status[j], values[0], "left"),
+            (profiles.upper[j], profiles.upper_status[j], values[-1], "right"))):
         if status == "closed":
             ends.append(end)
+            axis.plot(end, profiles.end_ssr[j, side], linestyle="none", marker="|", markersize=12,
+                      markeredgewidth=2, color=THRESHOLD)
             continue
         ends.append(edge)
         axis.annotate("", xy=(edge, level), xytext=(profiles.estimate[j], level),
