@@ -1,14 +1,16 @@
-"""Profile-likelihood walk: one batch per step for all parameters against one call per profile side.
+"""Profile likelihood: one batch per step for all parameters against one call per profile side.
 
     python tests/benchmarks/bench_identifiability.py [--points N] [--repeat R]
 
-The batched walk (``audit.profiles.profile_all``: every parameter and both directions of a step
-in one ``fit_batch`` call through ``audit.pinned``) is timed against the obvious alternative:
-the same grid, the same warm starts, but one ``fit_batch`` call per parameter, side and step
-with the engine's ``free`` mask. Both must give the same profile SSRs (the largest relative
-difference is printed). Problems: the bundled probe-cooling scenario (3 parameters) and a
-constructed sum of three exponentials (6 parameters, m = 400). Prints one JSON object; times
-are the best of ``--repeat`` runs, on one process.
+The batched profiles (``audit.profiles.profile_all``: every parameter and both directions of a
+walk step, then of a refinement round of the interval ends, in one ``fit_batch`` call) are timed
+against the same algorithm run side by side: the same grid, doubling steps and refinement, but
+one side per call (``profile_walk.walk_sides`` and ``profile_ends.refine_crossings`` given one
+side at a time). Both must give the same interval ends (the largest relative difference is
+printed), with the refinement rounds spent. Problems: the bundled probe-cooling scenario
+(3 parameters), a constructed sum of three exponentials (6 parameters, m = 400) and a
+saturation curve seen only at low concentrations (2 parameters, walks far past its grid).
+Prints one JSON object; times are the best of ``--repeat`` runs, on one process.
 """
 from __future__ import annotations
 
@@ -19,12 +21,13 @@ from pathlib import Path
 
 import numpy as np
 
-from audit.engine import fit_batch
+from audit.engine import RefitSettings
 from audit.estimates import estimate
 from audit.identifiability import best_fit
-from audit.outcomes import Outcome
 from audit.problem import Problem
-from audit.profiles import CEILING_RISES, FAILURES_IN_A_ROW, plan_grid, profile_all
+from audit.profile_ends import refine_crossings
+from audit.profile_walk import CEILING_RISES, NOT_WALKED, walk_sides
+from audit.profiles import plan_grid, profile_all
 from audit.scenario import load_scenario
 from audit.settings import SolverSettings
 
@@ -48,63 +51,68 @@ def three_exponentials() -> tuple[Problem, np.ndarray]:
     return Problem(model, x, y, ("a1", "r1", "a2", "r2", "a3", "r3"), jacobian=jacobian), truth * 1.05
 
 
-def per_side_walk(problem: Problem, estimate_: np.ndarray, values: np.ndarray, solver: SolverSettings,
-                  ceiling: float) -> np.ndarray:
-    """The unbatched baseline: (n, 2, K) profile SSR, one fit_batch call per parameter, side and step.
+def low_concentration_saturation() -> tuple[Problem, np.ndarray, np.ndarray, np.ndarray]:
+    """Constructed data: y = vmax·x/(km + x) measured only up to 0.4·km (vmax 30, km 5, 7 %
+    noise); returns the problem, a start and the ranges [0.1, 1000] of both parameters."""
+    rng = np.random.default_rng(8)
+    x = np.repeat([0.25, 0.5, 0.75, 1.0, 1.5, 2.0], 2)
 
-    Sides stop where the batched walk stops them: above ``ceiling``, or after repeated failures.
-    """
-    n, _, steps = values.shape
-    ssr = np.full(values.shape, np.nan)
+    def model(x, vmax, km):
+        return vmax * x / (km + x)
+
+    y = model(x, 30.0, 5.0) * (1 + 0.07 * rng.standard_normal(x.size))
+    return Problem(model, x, y, ("vmax", "km")), np.array([20.0, 3.0]), np.full(2, 0.1), np.full(2, 1000.0)
+
+
+def per_side_ends(problem: Problem, estimate_: np.ndarray, ssr_min: float, threshold: float, grid,
+                  lower: np.ndarray, upper: np.ndarray, walk: RefitSettings) -> np.ndarray:
+    """The unbatched baseline: (n, 2) interval ends, walking and refining one side per call."""
+    n = len(estimate_)
+    ceiling = ssr_min + CEILING_RISES * (threshold - ssr_min)
+    bounds = np.stack([np.nan_to_num(lower, nan=-np.inf), np.nan_to_num(upper, nan=np.inf)], axis=1)
+    ends = np.full((n, 2), np.nan)
     for j in range(n):
-        free = np.arange(n) != j
         for side in (0, 1):
-            last, failures = estimate_.copy(), 0
-            for k in range(steps):
-                start = last.copy()
-                start[j] = values[j, side, k]
-                fit = fit_batch(problem, start[None, :], solver.step_factors[0], free=free,
-                                tol=solver.tolerance, max_iter=solver.max_iterations)
-                if fit.outcome[0] != Outcome.CONVERGED:
-                    fit = fit_batch(problem, start[None, :], 1.0, free=free, method="lm",
-                                    tol=solver.tolerance, max_iter=solver.max_iterations)
-                if fit.outcome[0] in (Outcome.CONVERGED, Outcome.SINGULAR):
-                    ssr[j, side, k] = fit.ssr[0]
-                    last, failures = fit.params[0], 0
-                    if fit.ssr[0] > ceiling:
-                        break
-                else:
-                    failures += 1
-                    if failures >= FAILURES_IN_A_ROW:
-                        break
-    return ssr
+            pinned = np.array([j])
+            walked = walk_sides(problem, estimate_, pinned, grid.values[j, side][None, :], bounds[j, side][None],
+                                grid.log[pinned], threshold, ceiling, walk)
+            ends[j, side] = refine_crossings(problem, estimate_, ssr_min, threshold, pinned, walked, walk).value[0]
+    return ends
 
 
-def measure(name: str, problem: Problem, start: np.ndarray, points: int, repeat: int) -> dict:
+def measure(name: str, problem: Problem, start: np.ndarray, points: int, repeat: int,
+            lower: np.ndarray | None = None, upper: np.ndarray | None = None) -> dict:
     solver = SolverSettings()
+    walk = RefitSettings(step_factor=solver.step_factors[0], tolerance=solver.tolerance,
+                         max_iterations=solver.max_iterations)
     params, _ = best_fit(problem, start, solver)
     estimates = estimate(problem, params)
+    n = len(params)
+    lower = np.full(n, np.nan) if lower is None else lower
+    upper = np.full(n, np.nan) if upper is None else upper
     steps = (points - 1) // 2
-    grid = plan_grid(params, estimates.t_quantile * estimates.std_errors, np.full(len(params), np.nan),
-                     np.full(len(params), np.nan), steps, reach=4.0, fallback=np.abs(params))
+    grid = plan_grid(params, estimates.t_quantile * estimates.std_errors, lower, upper, steps, reach=4.0,
+                     fallback=np.abs(params))
     batched_times, baseline_times = [], []
     for _ in range(repeat):
         started = time.perf_counter()
-        profiles = profile_all(problem, params, estimates.ssr, grid, 0.95)
+        profiles = profile_all(problem, params, estimates.ssr, grid, 0.95, walk, lower_bound=lower,
+                               upper_bound=upper)
         batched_times.append(time.perf_counter() - started)
         started = time.perf_counter()
-        ceiling = profiles.ssr_min + CEILING_RISES * (profiles.threshold - profiles.ssr_min)
-        baseline = per_side_walk(problem, params, grid.values, solver, ceiling)
+        baseline = per_side_ends(problem, params, profiles.ssr_min, profiles.threshold, grid, lower, upper, walk)
         baseline_times.append(time.perf_counter() - started)
-    centre = steps
-    batched = np.stack([profiles.ssr[:, :centre][:, ::-1], profiles.ssr[:, centre + 1:]], axis=1)
+    batched = np.column_stack([profiles.lower, profiles.upper])
     both = np.isfinite(batched) & np.isfinite(baseline)
-    difference = np.max(np.abs(batched[both] - baseline[both]) / baseline[both]) if both.any() else None
+    difference = np.max(np.abs(batched[both] - baseline[both]) / np.abs(baseline[both])) if both.any() else None
     return {
         "problem": name, "parameters": problem.n_params, "observations": problem.n_obs,
-        "profile_points": 2 * steps + 1, "batched_seconds": min(batched_times),
-        "per_side_seconds": min(baseline_times), "speedup": min(baseline_times) / min(batched_times),
-        "points_compared": int(both.sum()), "largest_relative_ssr_difference": difference,
+        "grid_points": 2 * steps + 1, "walked_points": int(np.sum(profiles.outcome != NOT_WALKED)) - n,
+        "closed_sides": int(np.sum(np.isfinite(batched))),
+        "batched_seconds": min(batched_times), "per_side_seconds": min(baseline_times),
+        "speedup": min(baseline_times) / min(batched_times),
+        "largest_relative_end_difference": difference,
+        "largest_end_ssr_error": float(np.nanmax(np.abs(profiles.end_ssr / profiles.threshold - 1))),
     }
 
 
@@ -115,9 +123,12 @@ def main() -> None:
     args = parser.parse_args()
     scenario = load_scenario(SCENARIO)
     exponentials, start = three_exponentials()
+    saturation, saturation_start, lower, upper = low_concentration_saturation()
     results = [measure("probe-cooling", scenario.problem, scenario.start, args.points, args.repeat),
-               measure("three-exponentials", exponentials, start, args.points, args.repeat)]
-    print(json.dumps({"benchmark": "profile walk, batched vs one call per side", "results": results}, indent=2))
+               measure("three-exponentials", exponentials, start, args.points, args.repeat),
+               measure("low-concentration-saturation", saturation, saturation_start, args.points, args.repeat,
+                       lower, upper)]
+    print(json.dumps({"benchmark": "profiles, batched vs one call per side", "results": results}, indent=2))
 
 
 if __name__ == "__main__":
