@@ -8,6 +8,7 @@ scipy.optimize.least_squares or from the sum of squares written out with numpy.
 from __future__ import annotations
 
 import json
+import shutil
 import textwrap
 from pathlib import Path
 
@@ -52,6 +53,19 @@ def scipy_fit(folder: Path, start) -> tuple[np.ndarray, float]:
     fit = least_squares(lambda a: a[0] * np.sin(a[1] * data["t"] + a[2]) - data["y"], start, method="lm",
                         xtol=1e-14, ftol=1e-14, gtol=1e-14)
     return fit.x, 2.0 * fit.cost
+
+
+def closed_form_ssr(folder: Path, params) -> float:
+    """Reference: the sum of squared residuals of amp·sin(omega·t + phase), written out with numpy."""
+    data = np.genfromtxt(folder / "data.csv", delimiter=",", names=True)
+    amp, omega, phase = params
+    return float(np.sum((data["y"] - amp * np.sin(omega * data["t"] + phase)) ** 2))
+
+
+def run(capsys, *argv: str) -> tuple[int, str, str]:
+    status = main(list(argv))
+    captured = capsys.readouterr()
+    return status, captured.out, captured.err
 
 
 @pytest.fixture(scope="module")
@@ -131,3 +145,83 @@ def test_a_lower_fit_from_the_start_inside_the_ranges_replaces_a_coarse_sweeps_r
     assert known.source == FROM_START and known.params == pytest.approx(optimum, rel=1e-6)
     assert known.ssr == pytest.approx(optimum_ssr, rel=1e-9)
     assert not known.lower_ssr_known and "missed" in known.notes[0]
+
+
+def test_bootstrap_refits_from_the_sweeps_reference(capsys, swept):
+    folder, out = swept
+    _, text, _ = run(capsys, "bootstrap", str(folder), "--samples", "20", "--jobs", "1", "-o", str(out), "--json")
+    report = json.loads(text)
+    optimum, optimum_ssr = scipy_fit(folder, NEAR_OPTIMUM)
+    # Reference: scipy.optimize.least_squares from a start near the optimum.
+    assert report["best"] == pytest.approx(optimum, rel=1e-6)
+    assert report["audited_fit"]["source"] == FROM_SWEEP
+    assert report["audited_fit"]["ssr"] == pytest.approx(optimum_ssr, rel=1e-9)
+    assert report["asymptotic"]["ssr"] == pytest.approx(optimum_ssr, rel=1e-9)
+
+
+def test_identify_analyses_the_sweeps_reference(capsys, swept):
+    folder, out = swept
+    _, text, _ = run(capsys, "identify", str(folder), "--points", "9", "-o", str(out), "--json")
+    report = json.loads(text)
+    optimum, optimum_ssr = scipy_fit(folder, NEAR_OPTIMUM)
+    # Reference: scipy.optimize.least_squares from a start near the optimum.
+    assert values(report["params"]) == pytest.approx(optimum, rel=1e-6)
+    assert report["profiles"]["ssr_min"] == pytest.approx(optimum_ssr, rel=1e-9)
+    assert report["audited_fit"]["source"] == FROM_SWEEP and not report["audited_fit"]["lower_ssr_known"]
+    assert not report["profiles"]["found_lower_ssr"]
+
+
+def test_the_derivative_checks_best_fit_point_is_the_sweeps_reference(capsys, swept):
+    folder, out = swept
+    _, text, _ = run(capsys, "derivatives", str(folder), "--points", "0", "-o", str(out), "--json")
+    report = json.loads(text)
+    optimum, _ = scipy_fit(folder, NEAR_OPTIMUM)
+    best = next(point for point in report["points"] if point["label"] == "best fit")
+    # Reference: scipy.optimize.least_squares from a start near the optimum.
+    assert values(best["params"]) == pytest.approx(optimum, rel=1e-6)
+    assert report["audited_fit"]["source"] == FROM_SWEEP
+
+
+def test_without_a_sweep_identify_warns_with_the_profile_refit_below_the_audited_fit(capsys, swept, tmp_path):
+    folder, _ = swept
+    status, text, _ = run(capsys, "identify", str(folder), "--points", "9", "-o", str(tmp_path))
+    report = json.loads((tmp_path / "identifiability.json").read_text())
+    audited = report["audited_fit"]
+    _, local_ssr = scipy_fit(folder, [1.0, 1.0, 0.0])
+    # Reference: scipy.optimize.least_squares from the scenario's start (the local optimum).
+    assert audited["source"] == FROM_START and audited["ssr"] == pytest.approx(local_ssr, rel=1e-9)
+    lower = audited["lower"]
+    # Reference: the SSR written out with numpy at the reported parameters of the profile refit.
+    recomputed = closed_form_ssr(folder, values(lower["params"]))
+    assert audited["lower_ssr_known"] and lower["ssr"] == pytest.approx(recomputed, rel=1e-9)
+    assert lower["ssr"] < local_ssr and lower["source"] == "a profile refit"
+    assert status == 1 and "warning:" in text and f"amp = {lower['params']['amp']:.8g}" in text
+    assert "no sweep of this scenario" in text
+
+
+def test_without_a_sweep_bootstrap_audits_the_start_fit_and_warns_of_nothing_unknown(capsys, swept, tmp_path):
+    folder, _ = swept
+    _, text, _ = run(capsys, "bootstrap", str(folder), "--samples", "20", "--jobs", "1", "-o", str(tmp_path),
+                     "--json")
+    report = json.loads(text)
+    local, local_ssr = scipy_fit(folder, [1.0, 1.0, 0.0])
+    # Reference: scipy.optimize.least_squares from the scenario's start.
+    assert report["best"] == pytest.approx(local, rel=1e-6)
+    assert report["audited_fit"]["ssr"] == pytest.approx(local_ssr, rel=1e-9)
+    assert report["audited_fit"]["source"] == FROM_START and not report["audited_fit"]["lower_ssr_known"]
+
+
+def test_a_sweep_of_another_data_file_is_ignored(capsys, swept, tmp_path):
+    _, out = swept
+    other = write_sinusoid(tmp_path / "other", omega=1.1, seed=5)
+    stale = tmp_path / "out"
+    stale.mkdir()
+    shutil.copy(out / "sweep.json", stale / "sweep.json")
+    _, text, err = run(capsys, "bootstrap", str(other), "--samples", "20", "--jobs", "1", "-o", str(stale), "--json")
+    report = json.loads(text)
+    expected, expected_ssr = scipy_fit(other, [1.0, 1.0, 0.0])
+    # Reference: scipy.optimize.least_squares on the other data from the scenario's start.
+    assert report["audited_fit"]["source"] == FROM_START
+    assert report["best"] == pytest.approx(expected, rel=1e-6)
+    assert report["audited_fit"]["ssr"] == pytest.approx(expected_ssr, rel=1e-9)
+    assert "is not used" in err and "other data" in err
