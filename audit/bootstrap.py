@@ -12,7 +12,7 @@ the share and kind of the others are reported as a robustness finding of their o
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy import stats
@@ -28,7 +28,7 @@ from .problem import Problem
 from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale
 from .resampling import Scheme, build_scheme, leave_one_out
 from .scenario import Scenario
-from .single_fit import best_from_start
+from .best_fit import KnownFit, SweepReference, best_known_fit
 
 #: Refits per chunk: up to MAX_CHUNK (large enough for the batched solver to amortise numpy's
 #: per-call cost and a worker its per-task cost), and fewer for many observations, so that a
@@ -70,6 +70,7 @@ class BootstrapResult:
         pair_region_scale: radius, in standard units, of the asymptotic joint confidence region
             of a parameter pair: sqrt(2·F(confidence; 2, m − n)).
         notes: plain-language remarks on how far the intervals can be trusted.
+        audited_fit: which fit ``best`` is and any lower SSR known (set by ``bootstrap_scenario``).
     """
 
     names: tuple[str, ...]
@@ -93,6 +94,7 @@ class BootstrapResult:
     comparison: IntervalComparison
     pair_region_scale: float
     notes: list[str] = field(default_factory=list)
+    audited_fit: KnownFit | None = None
 
     @property
     def flags(self) -> list[Flag]:
@@ -114,7 +116,7 @@ class BootstrapResult:
             "flags": [flag.to_dict() for flag in self.flags], "notes": self.notes,
             "asymptotic": self.asymptotic, "comparison": self.comparison,
             "pair_region_scale": self.pair_region_scale,
-            "replicates": self.replicates, "jackknife": self.jackknife,
+            "replicates": self.replicates, "jackknife": self.jackknife, "audited_fit": self.audited_fit,
         })
 
     def _parameter(self, j: int) -> dict:
@@ -313,7 +315,7 @@ def total_refits(problem: Problem, samples: int) -> int:
 
 def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples: int | None = None,
                        step_factor: float | None = None, wild_multipliers: str | None = None,
-                       leverage_adjusted: bool | None = None, best: np.ndarray | None = None,
+                       leverage_adjusted: bool | None = None, reference: SweepReference | None = None,
                        plan: ParallelPlan | None = None,
                        progress: Callable[[int], None] | None = None) -> BootstrapResult:
     """``run_bootstrap`` with the scenario's [bootstrap] and [solver] settings.
@@ -323,9 +325,8 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
         method, samples, wild_multipliers, leverage_adjusted: override [bootstrap] method, samples,
             wild_weights and leverage_adjusted.
         step_factor: step factor of the refits (default: the first of [solver] step_factors).
-        best: (n,) best fit, e.g. the sweep's; default: the lowest-SSR converged fit from the
-            scenario's start over its step factors and one Levenberg-Marquardt run
-            (``single_fit.best_from_start``).
+        reference: what a sweep of this scenario found; the refits start from the best known
+            fit (``best_fit.best_known_fit``): its in-range reference, else the best from the start.
         plan, progress: as for ``run_bootstrap``.
 
     Raises:
@@ -336,17 +337,16 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
                           method=solver.method, tolerance=solver.tolerance, max_iterations=solver.max_iterations)
     if not 0 < refit.step_factor <= 1:
         raise InputError(f"step factor {refit.step_factor}: must lie in (0, 1]")
-    if best is None:
-        found = best_from_start(scenario.problem, scenario.start, solver)
-        if found is None:
-            raise InputError(f"{scenario.path}: no fit from the scenario's start converged, with any of the step "
-                             "factors or with Levenberg-Marquardt; the bootstrap needs a converged fit: find a "
-                             "working start first ('fitaudit fit', 'fitaudit sweep')")
-        best = found[0]
+    known = best_known_fit(scenario.problem, scenario.start, solver, reference)
+    if known is None:
+        raise InputError(f"{scenario.path}: no fit from the scenario's start converged, with any of the step "
+                         "factors or with Levenberg-Marquardt; the bootstrap needs a converged fit: find a "
+                         "working start first ('fitaudit fit', 'fitaudit sweep')")
     if leverage_adjusted is None:
         leverage_adjusted = settings.leverage_adjusted
-    return run_bootstrap(scenario.problem, best, method=method or settings.method,
-                         samples=settings.samples if samples is None else samples, seed=settings.seed,
-                         confidence=settings.confidence, refit=refit,
-                         wild_multipliers=wild_multipliers or settings.wild_weights,
-                         leverage_adjusted=leverage_adjusted, plan=plan, progress=progress)
+    result = run_bootstrap(scenario.problem, known.params, method=method or settings.method,
+                           samples=settings.samples if samples is None else samples, seed=settings.seed,
+                           confidence=settings.confidence, refit=refit,
+                           wild_multipliers=wild_multipliers or settings.wild_weights,
+                           leverage_adjusted=leverage_adjusted, plan=plan, progress=progress)
+    return replace(result, audited_fit=known)

@@ -1,8 +1,9 @@
-"""Where the derivative audit looks: the best fit, the scenario's start and seeded samples.
+"""Where the derivative audit looks: the best known fit, the scenario's start and seeded samples.
 
 A hand-derived derivative can be right near the solution and wrong elsewhere (a branch, an
 absolute value, a term that only matters far from the data's region), so the audit checks it at
-the best fit, at the scenario's start, and at points drawn inside the parameter ranges.
+the best known fit (``best_fit.best_known_fit``: the sweep's in-range reference, else the best
+fit from the start), at the scenario's start, and at points drawn inside the parameter ranges.
 
 A parameter without a range is drawn from a neighbourhood of its start: within ±50 % of its
 typical magnitude on a linear axis, and between half and twice the start on a log axis.
@@ -14,10 +15,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .best_fit import KnownFit, SweepReference, best_known_fit
 from .problem import Problem
 from .scenario import Parameter
 from .settings import SolverSettings
-from .single_fit import best_from_start
 
 #: Half-width of the neighbourhood of a start without a range, as a fraction of its typical
 #: magnitude (linear axis); on a log axis the start is multiplied by 2**u, u in [−1, 1].
@@ -34,11 +35,13 @@ class CheckPoints:
         params: (K, n) parameter values, one row per point.
         labels: (K) "best fit", "start", "sample 1", ...
         notes: what could not be done (e.g. no converged fit for the best-fit point).
+        best_fit: the fit behind the "best fit" point and any lower SSR known, or None.
     """
 
     params: np.ndarray
     labels: tuple[str, ...]
     notes: tuple[str, ...] = ()
+    best_fit: KnownFit | None = None
 
 
 def sample_points(parameters: tuple[Parameter, ...], count: int, rng: np.random.Generator) -> np.ndarray:
@@ -63,19 +66,12 @@ def sample_points(parameters: tuple[Parameter, ...], count: int, rng: np.random.
     return np.column_stack(columns)
 
 
-def best_fit(problem: Problem, start: np.ndarray, solver: SolverSettings) -> np.ndarray | None:
-    """(n,) the lowest-SSR converged fit from ``start``, or None when no run converges.
-
-    The fit uses central differences, not the hand-derived Jacobian under audit, so that a wrong
-    derivative cannot move the point at which it is judged.
-    """
-    found = best_from_start(dataclasses.replace(problem, jacobian=None), start, solver)
-    return None if found is None else found[0]
-
-
 def check_points(problem: Problem, parameters: tuple[Parameter, ...], solver: SolverSettings,
-                 count: int, seed: int) -> CheckPoints:
-    """The best fit (when one converges), the start and ``count`` seeded samples.
+                 count: int, seed: int, reference: SweepReference | None = None) -> CheckPoints:
+    """The best known fit (when there is one), the start and ``count`` seeded samples.
+
+    The fit from the start uses central differences, not the hand-derived Jacobian under
+    audit, so that a wrong derivative cannot move the point at which it is judged.
 
     Args:
         problem: the scenario's problem.
@@ -83,19 +79,20 @@ def check_points(problem: Problem, parameters: tuple[Parameter, ...], solver: So
         solver: settings of the best-fit run.
         count: number of sampled points (≥ 0).
         seed: seed of the sampling generator.
+        reference: what a sweep of the same scenario found, or None.
     """
     start = np.array([parameter.start for parameter in parameters])
     rows, labels, notes = [], [], []
-    fitted = best_fit(problem, start, solver)
+    fitted = best_known_fit(dataclasses.replace(problem, jacobian=None), start, solver, reference)
     if fitted is None:
         notes.append("no fit from the start converged (step-factor Gauss-Newton or Levenberg-Marquardt), "
                      "so the best fit is not among the check points")
     else:
-        rows.append(fitted)
+        rows.append(fitted.params)
         labels.append(BEST_FIT)
     rows.append(start)
     labels.append(START)
     samples = sample_points(parameters, count, np.random.default_rng(seed))
     rows.extend(samples)
     labels.extend(f"{SAMPLE} {k + 1}" for k in range(count))
-    return CheckPoints(params=np.vstack(rows), labels=tuple(labels), notes=tuple(notes))
+    return CheckPoints(params=np.vstack(rows), labels=tuple(labels), notes=tuple(notes), best_fit=fitted)

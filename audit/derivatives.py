@@ -26,6 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .best_fit import KnownFit, SweepReference
 from .derivative_consequences import Consequences, fit_consequences
 from .derivative_diagnosis import Diagnosis, Evidence, diagnose, no_hand_derivative
 from .derivative_points import check_points
@@ -87,6 +88,7 @@ class DerivativeAudit:
         dropped: labels of points left out because the model is not finite there.
         notes: remarks for the reader (formula not usable, best fit not found, ...).
         consequences: fits with and without the wrong columns, or None when nothing is wrong.
+        audited_fit: the fit behind the "best fit" point and any lower SSR known, or None.
     """
 
     names: tuple[str, ...]
@@ -119,6 +121,7 @@ class DerivativeAudit:
     dropped: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
     consequences: Consequences | None = None
+    audited_fit: KnownFit | None = None
 
     @property
     def true(self) -> np.ndarray:
@@ -168,17 +171,21 @@ class DerivativeAudit:
             "unreliable": (~self.usable).any(axis=2),
             "dropped": list(self.dropped), "notes": list(self.notes), "has_finding": self.has_finding,
             "consequences": self.consequences.to_dict() if self.consequences is not None else None,
+            "audited_fit": self.audited_fit,
         })
 
 
 def audit_derivatives(scenario: Scenario, count: int | None = None,
-                      progress: Callable[[str], None] | None = None) -> DerivativeAudit:
+                      progress: Callable[[str], None] | None = None,
+                      reference: SweepReference | None = None) -> DerivativeAudit:
     """The whole audit of a scenario: check points, comparison, diagnosis and consequences.
 
     Args:
         scenario: a loaded scenario.
         count: number of sampled check points (default: the scenario's [derivatives] points).
         progress: called with the name of each stage as it starts (for progress bars).
+        reference: what a sweep of this scenario found; its in-range reference is the "best
+            fit" check point (``derivative_points.check_points``).
 
     Raises:
         InputError: for a negative ``count``, or when the model is not finite at any point.
@@ -188,7 +195,8 @@ def audit_derivatives(scenario: Scenario, count: int | None = None,
         raise InputError(f"the number of sampled check points must be 0 or more, got {count}")
     announce = progress or (lambda stage: None)
     announce("best fit")
-    points = check_points(scenario.problem, scenario.parameters, scenario.solver, count, scenario.derivatives.seed)
+    points = check_points(scenario.problem, scenario.parameters, scenario.solver, count, scenario.derivatives.seed,
+                          reference)
     audit = compare_derivatives(scenario.problem, points.params, points.labels,
                                 predictor_names=scenario.x_names, progress=announce)
     consequences = None
@@ -196,7 +204,8 @@ def audit_derivatives(scenario: Scenario, count: int | None = None,
         announce("consequences")
         consequences = fit_consequences(scenario.problem, scenario.start, audit.wrong_columns, scenario.solver,
                                         scenario.bootstrap.confidence)
-    return dataclasses.replace(audit, notes=points.notes + audit.notes, consequences=consequences)
+    return dataclasses.replace(audit, notes=points.notes + audit.notes, consequences=consequences,
+                               audited_fit=points.best_fit)
 
 
 def compare_derivatives(problem: Problem, points: np.ndarray, labels: tuple[str, ...] | list[str], *,

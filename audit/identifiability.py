@@ -21,6 +21,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from .best_fit import KnownFit, SweepReference, best_known_fit
 from .collinearity import Collinearity, collinearity_indices
 from .engine import RefitSettings
 from .errors import InputError
@@ -33,6 +34,10 @@ from .profiles import SIDE_STATUS, Profiles, plan_grid, profile_all
 from .settings import IdentifiabilitySettings, SolverSettings
 from .single_fit import best_from_start
 from .weak_directions import WEAK_INDEX, condition_indices, describe, singular_values, weak_rows
+
+
+NO_FIT = ("no fit from the scenario's starting values converged; "
+          "find a working start first (fitaudit fit) before judging identifiability")
 
 
 @dataclass
@@ -97,6 +102,8 @@ class Identifiability:
         structural: True when the model is structurally non-identifiable.
         practical: (n,) True where the profile interval is open on a side.
         findings: [{"level": "flag" | "note", "text": ...}]: flags make the stage fail.
+        audited_fit: which fit ``params`` is and the lowest SSR known below it, a profile
+            refit's included (set by ``identify_scenario``).
     """
 
     names: tuple[str, ...]
@@ -121,6 +128,7 @@ class Identifiability:
     structural: bool
     practical: np.ndarray
     findings: list[dict] = field(default_factory=list)
+    audited_fit: KnownFit | None = None
 
     @property
     def flagged(self) -> bool:
@@ -144,6 +152,7 @@ class Identifiability:
                 {"parameters": [self.names[i], self.names[j]], "correlation": r}
                 for (i, j), r in zip(self.strong_pairs, self.strong_correlation)]},
             "collinearity": self.collinearity, "rank_check": self.rank, "profiles": self.profiles,
+            "audited_fit": self.audited_fit,
         })
 
 
@@ -159,8 +168,7 @@ def best_fit(problem: Problem, start: np.ndarray, solver: SolverSettings) -> tup
     """
     found = best_from_start(problem, start, solver, accept_lost_rank=True)
     if found is None:
-        raise InputError("no fit from the scenario's starting values converged; "
-                         "find a working start first (fitaudit fit) before judging identifiability")
+        raise InputError(NO_FIT)
     return found[0], found[1].label
 
 
@@ -272,8 +280,9 @@ def _findings(result: Identifiability) -> list[dict]:
                  (("below", profiles.lower_status[j]), ("above", profiles.upper_status[j])) if status != "closed"]
         found.append(("flag", f"{names[j]}: profile interval open {' and '.join(sides)}"))
     if profiles.found_lower_ssr:
-        found.append(("flag", f"a profile refit reached SSR {profiles.lowest_ssr:.6g}, below the best fit's "
-                              f"{profiles.ssr_min:.6g}: the best fit is not the least-squares minimum"))
+        where = ", ".join(f"{name} = {value:.8g}" for name, value in zip(names, profiles.lowest_params))
+        found.append(("flag", f"a profile refit reached SSR {profiles.lowest_ssr:.6g} at {where}, below the best "
+                              f"fit's {profiles.ssr_min:.6g}: the best fit is not the least-squares minimum"))
     for row, text in zip(result.weak, result.weak_text):
         if result.condition_index[row] >= WEAK_INDEX:
             found.append(("note", text))
@@ -291,13 +300,15 @@ def _findings(result: Identifiability) -> list[dict]:
 
 
 def identify_scenario(scenario, *, points: int | None = None, plan: ParallelPlan | None = None,
-                      on_step=None) -> Identifiability:
-    """The identifiability stage for a loaded ``Scenario``: best fit from its start, then ``analyse``.
+                      on_step=None, reference: SweepReference | None = None) -> Identifiability:
+    """The identifiability stage for a loaded ``Scenario`` at its best known fit (``analyse``).
 
     Args:
         scenario: a loaded scenario.
         points: profile grid points per parameter (default: [identifiability] profile_points).
         plan, on_step: as for ``analyse``.
+        reference: what a sweep of this scenario found; the stage analyses its in-range
+            reference, else the best fit from the start (``best_fit.best_known_fit``).
 
     Raises:
         InputError: for fewer than 5 points, or when no fit from the start converges.
@@ -307,9 +318,14 @@ def identify_scenario(scenario, *, points: int | None = None, plan: ParallelPlan
         if points < 5:
             raise InputError(f"--points {points}: a profile needs at least 5 grid points")
         settings = replace(settings, profile_points=points)
-    params, outcome = best_fit(scenario.problem, scenario.start, scenario.solver)
+    known = best_known_fit(scenario.problem, scenario.start, scenario.solver, reference, accept_lost_rank=True)
+    if known is None:
+        raise InputError(NO_FIT)
     lower = np.array([p.lower for p in scenario.parameters])
     upper = np.array([p.upper for p in scenario.parameters])
     log_axis = np.array([p.axis == "log" for p in scenario.parameters])
-    return analyse(scenario.problem, params, lower=lower, upper=upper, log_axis=log_axis, settings=settings,
-                   solver=scenario.solver, fit_outcome=outcome, plan=plan, on_step=on_step)
+    result = analyse(scenario.problem, known.params, lower=lower, upper=upper, log_axis=log_axis,
+                     settings=settings, solver=scenario.solver, fit_outcome=known.outcome, plan=plan, on_step=on_step)
+    profiles = result.profiles
+    result.audited_fit = known.with_lower(profiles.lowest_params, profiles.lowest_ssr, "a profile refit")
+    return result

@@ -3,7 +3,8 @@
 This is what ``fitaudit fit`` shows: the engine is run on a batch of one, keeping every iterate,
 and the residual sum of squares and largest scaled change of each iterate are recomputed from
 that history so the trace shows exactly what the solver did. ``best_from_start`` is the fit the
-local stages (derivative check points, identifiability) start from when no sweep gave one.
+local stages (derivative check points, bootstrap, identifiability) audit when no sweep of the
+scenario gave a reference (``best_fit.best_known_fit``).
 """
 from __future__ import annotations
 

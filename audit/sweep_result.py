@@ -121,6 +121,8 @@ class SweepResult:
         recommendation_reason: one line on why.
         maps: the 2-D slices; cases: example runs with their paths.
         chunks: {"total", "reused", "computed"}; cache: the cache folder; warnings: notes.
+        fingerprint: ``best_fit.scenario_fingerprint`` of the scenario swept, so that other
+            stages take the reference only from a sweep of the same problem ("" when unset).
     """
 
     names: tuple[str, ...]
@@ -163,6 +165,7 @@ class SweepResult:
     chunks: dict[str, int] = field(default_factory=dict)
     cache: str = ""
     warnings: list[str] = field(default_factory=list)
+    fingerprint: str = ""
 
     @property
     def best_params(self) -> np.ndarray:
@@ -224,6 +227,9 @@ class SweepResult:
                               self.solution_params, self.solution_ssr, self.solution_level_with_best,
                               self.solution_inside, self.solution_same_curve, self.solution_exchange))],
             "best": {"params": dict(zip(self.names, self.best_params)), "ssr": self.best_ssr},
+            "fingerprint": self.fingerprint,
+            "reference": {"params": dict(zip(self.names, self.best_params)), "ssr": self.best_ssr}
+            if len(self.solution_ssr) and self.solution_inside[0] else None,
             "recommendation": recommendation,
             "safe_region": {"level": self.region_level, "min_starts": self.region_min_starts,
                             "radius": self.region_radius, "lower": self.region_lower, "upper": self.region_upper,

@@ -14,15 +14,18 @@ from ..replicates import FATE_MEANINGS
 from ..resampling import SCHEMES, WILD_MULTIPLIERS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
-                     write_results)
+                     show_audited_fit, sweep_reference, write_results)
 
 DESCRIPTION = """\
 How uncertain are the fitted parameters, and can the linearised standard errors be trusted?
 
-The fit's asymptotic standard errors and t intervals come from a linearisation at the best fit
-(the lowest-SSR fit from the scenario's start over its step factors and one Levenberg-Marquardt
-run). This command draws many replicate data sets, refits each one from the best fit with the
-scenario's solver and step factor, and shows the spread of the refitted parameters beside them:
+The fit's asymptotic standard errors and t intervals come from a linearisation at the best
+known fit: the sweep's reference (the lowest SSR inside the parameter ranges) when OUT/sweep.json
+holds a sweep of the same data, model, ranges and solver settings, else the lowest-SSR fit from
+the scenario's start over its step factors and one Levenberg-Marquardt run. A warning says when
+a lower SSR than the audited one is known. This command draws many replicate data sets, refits
+each one from the best fit with the scenario's solver and step factor, and shows the spread of
+the refitted parameters beside them:
 
   residual  fitted values + residuals drawn with replacement (errors alike at every x)
   wild      each observation keeps its own residual, times a random sign or Mammen multiplier
@@ -40,7 +43,7 @@ OUT/figures/bootstrap-pairs.{png,pdf}. Results depend on the scenario's [bootstr
 on --jobs or the backend.
 
 Exit status: 0 when bootstrap and asymptotic agree and every refit was used, 1 when something
-was flagged or refits were left out, 2 bad input."""
+was flagged, refits were left out or a lower SSR than the audited one is known, 2 bad input."""
 
 EXAMPLES = """\
   fitaudit bootstrap scenarios/probe-cooling
@@ -78,6 +81,7 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"--step-factor {args.step_factor}: must lie in (0, 1]")
     plan = parallel_plan(args)
     samples = scenario.bootstrap.samples if args.samples is None else args.samples
+    reference = sweep_reference(scenario, args.out)
     started = time.perf_counter()
     with progress_bar("refits", disable=args.json) as bar:
         task = bar.add_task("", total=total_refits(scenario.problem, samples), rate="")
@@ -88,14 +92,16 @@ def run(args: argparse.Namespace) -> int:
 
         result = bootstrap_scenario(scenario, method=args.method, samples=samples, step_factor=args.step_factor,
                                     wild_multipliers=args.wild_weights, leverage_adjusted=args.leverage_adjusted,
-                                    plan=plan, progress=advance)
+                                    reference=reference, plan=plan, progress=advance)
     folder = Path(args.out)
     files = write_results(result, folder, "bootstrap", write_figures)
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:
+        show_audited_fit(result.audited_fit, reference, args.out)
         show(result, files)
-    return EXIT_OK if not result.flags and result.replicates.failure_share == 0 else EXIT_FINDING
+    clean = not result.flags and result.replicates.failure_share == 0 and not result.audited_fit.lower_ssr_known
+    return EXIT_OK if clean else EXIT_FINDING
 
 
 def show(result: BootstrapResult, files: list[Path]) -> None:

@@ -11,6 +11,7 @@ from rich.console import Console
 from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
+from ..best_fit import FROM_START, KnownFit, SweepReference, scenario_fingerprint
 from ..errors import InputError
 from ..parallel import BACKENDS, ParallelPlan
 from ..scenario import Scenario, load_scenario
@@ -49,6 +50,8 @@ def add_json_option(parser: argparse.ArgumentParser) -> None:
 
 #: Where results go when -o is not given.
 DEFAULT_OUT = "fitaudit-output"
+#: The sweep's result file in the output folder; the other stages take their reference from it.
+SWEEP_FILE = "sweep.json"
 
 
 def add_parallel_options(parser: argparse.ArgumentParser, default_jobs: int = -1, dask: bool = True) -> None:
@@ -132,3 +135,42 @@ def number(value: float, digits: int = 6) -> str:
     if value is None or value != value:
         return "—"
     return f"{value:.{digits}g}"
+
+
+def sweep_reference(scenario: Scenario, out_folder: str | None) -> SweepReference | None:
+    """The reference of ``OUT/sweep.json`` (OUT: ``out_folder``, else the default) when that sweep
+    was run on this scenario's problem: same data, model, parameter ranges and solver settings.
+
+    A missing file, or one without an in-range reference, gives None; an unreadable or foreign
+    one gives None and a note on stderr, so that a stale sweep never becomes the reference.
+    """
+    path = Path(out_folder or DEFAULT_OUT) / SWEEP_FILE
+    if not path.is_file():
+        return None
+    try:
+        payload = json.loads(path.read_text())
+        if payload.get("fingerprint") != scenario_fingerprint(scenario):
+            err.print(f"[yellow]note:[/] {escape(str(path))} is not used: it was written for other data, model, "
+                      "parameter ranges or solver settings; run 'fitaudit sweep' again to audit its best fit",
+                      soft_wrap=True)
+            return None
+        return SweepReference.from_sweep_json(payload, scenario.names)
+    except (OSError, ValueError, KeyError, TypeError, AttributeError) as error:
+        err.print(f"[yellow]note:[/] {escape(str(path))} is not used: it cannot be read ({escape(str(error))})",
+                  soft_wrap=True)
+        return None
+
+
+def show_audited_fit(known: KnownFit | None, reference: SweepReference | None, out_folder: str | None) -> None:
+    """Which fit the stage audited, and a warning line when a lower SSR is known."""
+    if known is None:
+        return
+    out.print(escape(known.summary), soft_wrap=True)
+    for note in known.notes:
+        out.print(f"[yellow]note:[/] {escape(note)}", soft_wrap=True)
+    if known.source == FROM_START and reference is None:
+        folder = Path(out_folder or DEFAULT_OUT)
+        out.print(f"[yellow]note:[/] no sweep of this scenario in {escape(str(folder))}: run 'fitaudit sweep' "
+                  f"(-o {escape(str(folder))}) to search the parameter ranges for a lower SSR", soft_wrap=True)
+    if known.warning is not None:
+        out.print(f"[bold red]warning:[/] {escape(known.warning)}", soft_wrap=True)

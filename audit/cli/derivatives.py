@@ -12,7 +12,8 @@ from ..errors import InputError
 from ..figures.derivatives import write_figures
 from ..outcomes import Outcome
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_scenario_argument,
-                     number, open_scenario, out, print_json, progress_bar, write_results)
+                     number, open_scenario, out, print_json, progress_bar, show_audited_fit, sweep_reference,
+                     write_results)
 
 DESCRIPTION = """\
 Are the hand-derived partial derivatives (the model file's jacobian function) right?
@@ -20,9 +21,11 @@ Are the hand-derived partial derivatives (the model file's jacobian function) ri
 They are compared, observation by observation, with high-accuracy numeric derivatives
 (numdifftools: central differences over shrinking steps with Richardson extrapolation and an
 error estimate) and, when [model] formula states the model's formula, with the exact symbolic
-ones. The check points are the best fit, the scenario's start and N points drawn inside the
-parameter ranges (seeded by [derivatives] seed). A column is called wrong only where the
-difference is far beyond the numeric error bound and above a millionth of the column's size.
+ones. The check points are the best known fit (the sweep's in-range reference when
+OUT/sweep.json, default OUT fitaudit-output, holds a sweep of the same problem, else the best
+fit from the start), the scenario's start and N points drawn inside the parameter ranges (seeded
+by [derivatives] seed). A column is called wrong only where the difference is far beyond the
+numeric error bound and above a millionth of the column's size.
 
 For each parameter the table shows the largest relative error (largest |difference| divided by
 the column's largest |derivative| at that point), where it occurs, the verdict and a diagnosis
@@ -54,7 +57,8 @@ def register(subparsers) -> None:
     parser.add_argument("--points", type=int, metavar="N",
                         help="check points drawn inside the parameter ranges, besides the best fit and the start "
                              "(default: the scenario's [derivatives] points)")
-    add_output_option(parser, "derivatives.json and the figures", default=None)
+    add_output_option(parser, "derivatives.json and the figures (sweep.json is read from OUT, "
+                              "else from fitaudit-output)", default=None)
     add_json_option(parser)
 
 
@@ -62,6 +66,7 @@ def run(args: argparse.Namespace) -> int:
     scenario = open_scenario(args)
     if args.points is not None and args.points < 0:
         raise InputError(f"--points {args.points}: must be 0 or more")
+    reference = sweep_reference(scenario, args.out)
     stages = ["best fit", "numeric derivatives", "comparison", "consequences"]
     with progress_bar("derivative audit", disable=args.json) as bar:
         task = bar.add_task("", total=len(stages), rate="")
@@ -69,12 +74,13 @@ def run(args: argparse.Namespace) -> int:
         def advance(stage: str) -> None:
             bar.update(task, completed=stages.index(stage), rate=stage)
 
-        result = audit_derivatives(scenario, args.points, progress=advance)
+        result = audit_derivatives(scenario, args.points, progress=advance, reference=reference)
         bar.update(task, completed=len(stages), rate="done")
     files = write_results(result, Path(args.out), "derivatives", write_figures) if args.out else []
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:
+        show_audited_fit(result.audited_fit, reference, args.out)
         show(result, files)
     return EXIT_FINDING if result.has_finding else EXIT_OK
 

@@ -12,11 +12,14 @@ from ..identifiability import Identifiability, identify_scenario
 from ..profiles import SIDE_STATUS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
-                     write_results)
+                     show_audited_fit, sweep_reference, write_results)
 
 DESCRIPTION = """\
-Fit the scenario from its starting values, then ask whether the data can determine each
-parameter:
+Take the best known fit, then ask whether the data can determine each parameter. The best
+known fit is the sweep's reference (the lowest SSR inside the parameter ranges) when
+OUT/sweep.json (default OUT: fitaudit-output) holds a sweep of the same data, model, ranges and
+solver settings, else the lowest-SSR fit from the scenario's start over its step factors and
+Levenberg-Marquardt; a warning says when a lower SSR than the audited one is known.
 
   singular values   of the weighted Jacobian, raw and with unit-length columns, and the
                     condition numbers; the weakest directions in words, e.g. "tau and dT
@@ -38,7 +41,8 @@ parameter:
                     not bound the parameter there (also reported: refits that failed first).
 
 Exit status: 0 every parameter identifiable, 1 something flagged (structural
-non-identifiability, an open profile interval, or a profile that beat the best fit), 2 bad input."""
+non-identifiability, an open profile interval, or a lower SSR known than the audited fit's, a
+profile refit's included), 2 bad input."""
 
 EXAMPLES = """\
   fitaudit identify scenarios/probe-cooling
@@ -54,28 +58,31 @@ def register(subparsers) -> None:
                         help="grid points of each parameter's profile, the estimate included "
                              "(default: [identifiability] profile_points, 41)")
     add_parallel_options(parser, default_jobs=1, dask=False)
-    add_output_option(parser, "identifiability.json and the figures", default=None)
+    add_output_option(parser, "identifiability.json and the figures (sweep.json is read from OUT, "
+                              "else from fitaudit-output)", default=None)
     add_json_option(parser)
 
 
 def run(args: argparse.Namespace) -> int:
     scenario = open_scenario(args)
     plan = parallel_plan(args)
+    reference = sweep_reference(scenario, args.out)
     with progress_bar("profiles", disable=args.json) as progress:
         task = progress.add_task("profiles", total=None, rate="")
 
         def on_step(done: int, total: int) -> None:
             progress.update(task, completed=done, total=total)
 
-        result = identify_scenario(scenario, points=args.points, plan=plan, on_step=on_step)
+        result = identify_scenario(scenario, points=args.points, plan=plan, on_step=on_step, reference=reference)
     written = write_results(result, Path(args.out), "identifiability", write_figures) if args.out else []
     if args.json:
         print_json(result.to_dict())
     else:
+        show_audited_fit(result.audited_fit, reference, args.out)
         show(result)
         for path in written:
             out.print(f"wrote {path}")
-    return EXIT_FINDING if result.flagged else EXIT_OK
+    return EXIT_FINDING if result.flagged or result.audited_fit.lower_ssr_known else EXIT_OK
 
 
 def show(result: Identifiability) -> None:
