@@ -35,7 +35,7 @@ from .parallel import ParallelPlan, map_chunks
 from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
                         safe_regions)
 from .settings import nearest
-from .solutions import Catalogue, SolutionTolerance, inside_first, merge_catalogues, relabel
+from .solutions import Catalogue, SolutionTolerance, merge_catalogues
 from .starts import StartDesign, make_design, map_axis_values, map_design, search_space
 from .sweep_cases import CaseSelection, trace_cases
 from .sweep_chunk import FAILURE_KINDS, ChunkWork
@@ -197,14 +197,7 @@ class _Sweep:
 
     def _merge(self, catalogues: list[Catalogue]) -> tuple[Catalogue, list[np.ndarray]]:
         """Merge chunk catalogues, the solutions inside the searched ranges first."""
-        merged, mappings = merge_catalogues(catalogues, self.tolerance)
-        merged, new_row = inside_first(merged, self._inside(merged.params))
-        return merged, [relabel(labels, new_row) for labels in mappings]
-
-    def _inside(self, params: np.ndarray) -> np.ndarray:
-        """(k,) True where every parameter lies within its searched range."""
-        unit = self.space.to_unit(params)
-        return np.all((unit >= 0) & (unit <= 1), axis=-1)
+        return merge_catalogues(catalogues, self.tolerance, contains=self.space.contains)
 
     def _compute(self, design: StartDesign, store: ChunkStore) -> list[tuple[int, int]]:
         """Make sure every chunk of ``design`` is stored; compute the missing ones. Returns the spans."""
@@ -268,7 +261,7 @@ class _Sweep:
             level[0] = False
         equivalence = find_equivalent(self.problem, merged.params, level, self.tolerance.parameter_relative,
                                       self.tolerance.floor)
-        solution_inside = self._inside(merged.params)
+        solution_inside = self.space.contains(merged.params)
         symmetric_inside = equivalence.same_curve & solution_inside
         solution_shares = tally.solution_counts / starts
         return SweepResult(
