@@ -253,7 +253,8 @@ class _Sweep:
         start_distance = float(np.max(np.abs(space.to_unit(self.scenario.start) - best_unit)))
         start = self.scenario.start
         inside_parameter = (start >= lower) & (start <= upper)
-        recommended, reason = choose_step_factor(shares[..., BEST], median[..., BEST], np.array(request.step_factors))
+        recommended, reason = choose_step_factor(shares[..., BEST], median[..., BEST], np.array(request.step_factors),
+                                                 request.methods, radius, inside, share_inside)
         level = np.zeros(len(merged), dtype=bool)
         if len(merged):
             level = np.abs(merged.ssr - merged.ssr[0]) <= (self.tolerance.ssr_relative * abs(merged.ssr[0])

@@ -71,7 +71,9 @@ def test_recommendation_never_picks_a_setting_that_did_not_reach_the_best():
     # Settings with no start reaching the best have no iterations to compare: they cannot tie.
     share = np.array([[0.0, 0.003, 0.0]])
     median = np.array([[np.nan, 38.0, np.nan]])
-    assert choose_step_factor(share, median, np.array([1.0, 0.5, 0.25]))[0] == (0, 1)
+    no_region = np.full((1, 3), np.nan)
+    assert choose_step_factor(share, median, np.array([1.0, 0.5, 0.25]), ("gn",), no_region, np.zeros((1, 3)),
+                              no_region)[0] == (0, 1)
 
 
 def two_decays_problem() -> tuple[Problem, np.ndarray]:

@@ -33,8 +33,10 @@ each with every step factor, and sorts every run by how it ended:
 For each step factor it reports the share of starts in each kind ("basin share" = best), the
 median and 90th-percentile iterations, and a safe starting region: the largest box around the
 best fit (in the axes' own linear or log units) inside which at least 99% of the starts
-reached the best solution. It recommends the step factor with the highest basin share (then
-the fewest iterations) and says whether the scenario's own start lies inside its safe region.
+reached the best solution. It recommends a step factor together with the region it is safe
+from: among the settings that have a safe region, the highest basin share (then the fewest
+iterations); the reason says why, and which setting with more successes had no safe region.
+It says whether the scenario's own start lies inside that region.
 
 Basin maps are 2-D slices through the best fit ([sweep] maps, default the first two
 parameters). Every finished chunk is cached under OUT/cache, so an interrupted sweep (Ctrl-C,
