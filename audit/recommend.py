@@ -106,27 +106,37 @@ def region_box(last: np.ndarray, unit_low: np.ndarray, unit_high: np.ndarray, sp
             np.where(missing, np.nan, space.from_unit(np.where(missing, 0.0, high))))
 
 
-def choose_step_factor(basin_share: np.ndarray, median_iterations: np.ndarray,
-                       step_factors: np.ndarray) -> tuple[tuple[int, int] | None, str]:
-    """The (method, step factor) to recommend, and why.
+def choose_step_factor(basin_share: np.ndarray, median_iterations: np.ndarray, step_factors: np.ndarray,
+                       methods: tuple[str, ...], region_radius: np.ndarray, region_starts: np.ndarray,
+                       region_share: np.ndarray) -> tuple[tuple[int, int] | None, str]:
+    """The (method, step factor) to recommend, with the starting region it is safe from, and why.
 
-    Highest basin share wins; shares within ``SHARE_TIE`` of the highest count as equal and
-    among those the fewest median iterations (to reach the best) win, then the larger step
+    A recommendation is only as good as the region it can be used from, so the settings that
+    have a safe region come first; among them (or among all settings that reached the best,
+    when none has a region) the highest basin share wins; shares within ``SHARE_TIE`` of it
+    count as equal and among those the fewest median iterations win, then the larger step
     factor, then the first method.
 
     Args:
         basin_share: (M, F) share of starts reaching the best solution.
         median_iterations: (M, F) median iterations of those runs.
-        step_factors: (F,).
+        step_factors: (F,); methods: (M,) their names.
+        region_radius: (M, F) half-width of each setting's safe region in unit-cube
+            coordinates, NaN where it has none; region_starts, region_share: (M, F) the starts
+            inside it and the share of them reaching the best.
 
     Returns:
-        (m, f) indices, or None when no start reached the best; and a one-line reason.
+        (m, f) indices, or None when no start reached the best solution; and the reason, which
+        names the region the choice is safe from.
     """
-    top = float(np.max(basin_share)) if basin_share.size else 0.0
-    if top <= 0:
-        return None, "no start reached a converged solution, so there is nothing to recommend"
+    reached = basin_share > 0
+    if not reached.any():
+        return None, "no start reached the best solution (a converged solution inside the searched ranges)"
+    safe = reached & np.isfinite(region_radius)
+    pool = safe if safe.any() else reached
+    top = float(np.max(np.where(pool, basin_share, -1.0)))
     # A setting that never reached the best has no iterations to compare: it cannot tie.
-    contenders = np.argwhere((basin_share >= top - SHARE_TIE) & (basin_share > 0))
+    contenders = np.argwhere(pool & (basin_share >= top - SHARE_TIE))
     keys = [(median_iterations[m, f], -step_factors[f], m) for m, f in contenders]
     m, f = (int(i) for i in contenders[min(range(len(keys)), key=keys.__getitem__)])
     if len(contenders) == 1:
@@ -134,4 +144,16 @@ def choose_step_factor(basin_share: np.ndarray, median_iterations: np.ndarray,
     else:
         reason = (f"{len(contenders)} settings reach the best solution from shares within "
                   f"{SHARE_TIE:.1%} of the highest; this one needs the fewest iterations")
-    return (m, f), reason
+    if not safe.any():
+        return (m, f), (f"{reason}; no setting has a safe starting region (a box around the best fit holding at "
+                        f"least {REGION_MIN_STARTS} starts of which {REGION_LEVEL:.0%} reach it), so start close "
+                        "to the best fit or sweep more starts to find one")
+    region = (f"safe from starts within {region_radius[m, f]:.3f} of each range's width around the best fit "
+              f"({region_share[m, f]:.1%} of the {int(region_starts[m, f])} starts there reached it)")
+    unsafe = reached & ~safe & (basin_share > basin_share[m, f] + SHARE_TIE)
+    if unsafe.any():
+        um, uf = np.unravel_index(np.argmax(np.where(unsafe, basin_share, -1.0)), basin_share.shape)
+        return (m, f), (f"{region}; {methods[um]} with step factor {step_factors[uf]:g} reaches the best from "
+                        f"more starts ({basin_share[um, uf]:.1%} against {basin_share[m, f]:.1%}) but from no box "
+                        f"around the best fit reliably, so it cannot be recommended from any starting region")
+    return (m, f), f"{reason} among the settings with a safe starting region; {region}"

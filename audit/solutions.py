@@ -3,10 +3,16 @@
 Two end points are the same solution when their residual sums of squares agree to
 ``SolutionTolerance.ssr_relative`` (plus an absolute floor for zero-residual fits) and every
 parameter agrees to ``parameter_relative`` of its size (or of a floor for parameters near zero).
-The clustering is a leader algorithm over the points sorted by SSR: the lowest point not yet
-placed founds a solution and takes every remaining point within tolerance of it. Each pass is
-vectorised over the points; the passes number the solutions found. Because the leader is the
-lowest point of its solution, the solution's representative is its most accurate end point.
+The clustering is a leader algorithm over the points sorted by SSR, those inside the searched
+ranges first: the first point not yet placed founds a solution and takes every remaining point
+within tolerance of it. Each pass is vectorised over the points; the passes number the
+solutions found. Because the leader is the lowest point of its solution, the solution's
+representative is its most accurate end point.
+
+Inside first, because the catalogue is capped: a periodic model reaches endless aliases of its
+best curve outside the ranges (a frequency plus multiples of 2π over the sampling step, a phase
+plus multiples of 2π), each at the same SSR to rounding. Sorted by SSR alone they filled the
+cap and pushed out the optimum inside the ranges, which is the one the user asked about.
 
 A sweep clusters each chunk's end points into a small local catalogue, then merges the
 catalogues of all chunks with the same rule (``merge_catalogues``), so memory follows the
@@ -14,6 +20,7 @@ number of distinct solutions, not the number of runs.
 """
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -67,8 +74,7 @@ class SolutionTolerance:
 
 @dataclass
 class Catalogue:
-    """Distinct solutions, lowest SSR first (or, after ``inside_first``, those within the
-    searched ranges first).
+    """Distinct solutions: those inside the searched ranges first, each group lowest SSR first.
 
     Attributes:
         params: (k, n) representative end points.
@@ -84,8 +90,13 @@ class Catalogue:
         return len(self.ssr)
 
 
+#: ``contains(params (k, n)) -> (k,) bool``: True where a point lies inside the searched ranges.
+Contains = Callable[[np.ndarray], np.ndarray]
+
+
 def cluster(params: np.ndarray, ssr: np.ndarray, tolerance: SolutionTolerance,
-            weight: np.ndarray | None = None, limit: int = CATALOGUE_LIMIT) -> tuple[Catalogue, np.ndarray]:
+            weight: np.ndarray | None = None, limit: int = CATALOGUE_LIMIT,
+            contains: Contains | None = None) -> tuple[Catalogue, np.ndarray]:
     """Group end points into distinct solutions.
 
     Args:
@@ -94,15 +105,18 @@ def cluster(params: np.ndarray, ssr: np.ndarray, tolerance: SolutionTolerance,
         tolerance: when two points are one solution.
         weight: (k,) how many runs each point stands for (default 1 each).
         limit: most solutions kept; points of later ones get ``UNCATALOGUED``.
+        contains: which points lie inside the searched ranges (default: all of them).
 
     Returns:
-        The catalogue (lowest SSR first) and (k,) labels: the catalogue row of each point.
+        The catalogue (solutions led by a point inside the ranges first, each group lowest
+        SSR first; row 0 is the reference) and (k,) labels: the catalogue row of each point.
     """
     params = np.asarray(params, dtype=float)
     ssr = np.asarray(ssr, dtype=float)
     weight = np.ones(len(ssr), dtype=np.int64) if weight is None else np.asarray(weight, dtype=np.int64)
     labels = np.full(len(ssr), UNCATALOGUED, dtype=np.int64)
-    order = np.argsort(ssr, kind="stable")
+    outside = np.zeros(len(ssr), dtype=bool) if contains is None or not len(ssr) else ~contains(params)
+    order = np.lexsort((ssr, outside))
     remaining = order
     leaders: list[int] = []
     counts: list[int] = []
@@ -128,14 +142,16 @@ def _same_solution(params: np.ndarray, ssr: np.ndarray, leader_params: np.ndarra
 
 
 def merge_catalogues(catalogues: list[Catalogue], tolerance: SolutionTolerance,
-                     limit: int = CATALOGUE_LIMIT) -> tuple[Catalogue, list[np.ndarray]]:
+                     limit: int = CATALOGUE_LIMIT, contains: Contains | None = None
+                     ) -> tuple[Catalogue, list[np.ndarray]]:
     """One catalogue from many (e.g. one per chunk), and where each entry went.
 
     Returns:
-        The merged catalogue (lowest SSR first) and, per input catalogue, (k_i,) labels into
-        it (``UNCATALOGUED`` beyond the limit).
+        The merged catalogue (inside the ranges first, as ``cluster``) and, per input
+        catalogue, (k_i,) labels into it (``UNCATALOGUED`` beyond the limit).
     """
-    n = next((c.params.shape[1] for c in catalogues if len(c)), 0)
+    # An empty catalogue still has its (0, n) shape: every run of a sweep may have failed.
+    n = next((c.params.shape[1] for c in catalogues if c.params.ndim == 2), 0)
     sizes = [len(c) for c in catalogues]
     if not sum(sizes):
         return Catalogue(np.empty((0, n)), np.empty(0), np.empty(0, dtype=np.int64)), \
@@ -143,27 +159,5 @@ def merge_catalogues(catalogues: list[Catalogue], tolerance: SolutionTolerance,
     params = np.vstack([c.params for c in catalogues if len(c)])
     ssr = np.concatenate([c.ssr for c in catalogues])
     count = np.concatenate([c.count for c in catalogues])
-    merged, labels = cluster(params, ssr, tolerance, weight=count, limit=limit)
+    merged, labels = cluster(params, ssr, tolerance, weight=count, limit=limit, contains=contains)
     return merged, np.split(labels, np.cumsum(sizes)[:-1])
-
-
-def inside_first(catalogue: Catalogue, inside: np.ndarray) -> tuple[Catalogue, np.ndarray]:
-    """The catalogue with the solutions marked ``inside`` (k,) first, each group by SSR.
-
-    Row 0 is then the reference: the lowest SSR within the ranges the user searched, even when
-    a lower one lies outside them (an aliased or mirrored parameter set, say).
-
-    Returns:
-        The reordered catalogue and (k,) the new row of every old row.
-    """
-    order = np.lexsort((catalogue.ssr, ~np.asarray(inside, dtype=bool)))
-    new_row = np.empty(len(order), dtype=np.int64)
-    new_row[order] = np.arange(len(order))
-    reordered = Catalogue(params=catalogue.params[order], ssr=catalogue.ssr[order], count=catalogue.count[order])
-    return reordered, new_row
-
-
-def relabel(labels: np.ndarray, new_row: np.ndarray) -> np.ndarray:
-    """Catalogue labels after ``inside_first``; ``UNCATALOGUED`` stays as it is."""
-    labels = np.asarray(labels)
-    return np.where(labels >= 0, new_row[np.maximum(labels, 0)], labels)

@@ -67,6 +67,11 @@ class SearchSpace:
             values = np.where(self.log, np.log10(np.where(params > 0, params, np.nan)), params)
         return (values - low) / (high - low)
 
+    def contains(self, params: np.ndarray) -> np.ndarray:
+        """(k,) True where every parameter of ``params`` (k, n) lies within its range."""
+        unit = self.to_unit(params)
+        return np.all((unit >= 0) & (unit <= 1), axis=-1)
+
     def from_unit(self, unit: np.ndarray) -> np.ndarray:
         """Parameter values (..., n) of unit-cube coordinates (..., n)."""
         low, high = self._axis_values(self.lower), self._axis_values(self.upper)

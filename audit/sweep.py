@@ -35,8 +35,9 @@ from .parallel import ParallelPlan, map_chunks
 from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
                         safe_regions)
 from .settings import nearest
-from .solutions import Catalogue, SolutionTolerance, inside_first, merge_catalogues, relabel
+from .solutions import Catalogue, SolutionTolerance, merge_catalogues
 from .starts import StartDesign, make_design, map_axis_values, map_design, search_space
+from .sweep_advice import next_step
 from .sweep_cases import CaseSelection, trace_cases
 from .sweep_chunk import FAILURE_KINDS, ChunkWork
 from .sweep_result import BEST, BasinMap, SweepResult
@@ -197,14 +198,7 @@ class _Sweep:
 
     def _merge(self, catalogues: list[Catalogue]) -> tuple[Catalogue, list[np.ndarray]]:
         """Merge chunk catalogues, the solutions inside the searched ranges first."""
-        merged, mappings = merge_catalogues(catalogues, self.tolerance)
-        merged, new_row = inside_first(merged, self._inside(merged.params))
-        return merged, [relabel(labels, new_row) for labels in mappings]
-
-    def _inside(self, params: np.ndarray) -> np.ndarray:
-        """(k,) True where every parameter lies within its searched range."""
-        unit = self.space.to_unit(params)
-        return np.all((unit >= 0) & (unit <= 1), axis=-1)
+        return merge_catalogues(catalogues, self.tolerance, contains=self.space.contains)
 
     def _compute(self, design: StartDesign, store: ChunkStore) -> list[tuple[int, int]]:
         """Make sure every chunk of ``design`` is stored; compute the missing ones. Returns the spans."""
@@ -260,7 +254,8 @@ class _Sweep:
         start_distance = float(np.max(np.abs(space.to_unit(self.scenario.start) - best_unit)))
         start = self.scenario.start
         inside_parameter = (start >= lower) & (start <= upper)
-        recommended, reason = choose_step_factor(shares[..., BEST], median[..., BEST], np.array(request.step_factors))
+        recommended, reason = choose_step_factor(shares[..., BEST], median[..., BEST], np.array(request.step_factors),
+                                                 request.methods, radius, inside, share_inside)
         level = np.zeros(len(merged), dtype=bool)
         if len(merged):
             level = np.abs(merged.ssr - merged.ssr[0]) <= (self.tolerance.ssr_relative * abs(merged.ssr[0])
@@ -268,9 +263,12 @@ class _Sweep:
             level[0] = False
         equivalence = find_equivalent(self.problem, merged.params, level, self.tolerance.parameter_relative,
                                       self.tolerance.floor)
-        solution_inside = self._inside(merged.params)
+        solution_inside = self.space.contains(merged.params)
         symmetric_inside = equivalence.same_curve & solution_inside
         solution_shares = tally.solution_counts / starts
+        curve_shares = shares[..., BEST] + solution_shares[..., equivalence.same_curve].sum(axis=-1)
+        advice = "" if recommended is not None else next_step(self.problem, self.scenario.start, tally.counts,
+                                                               int(np.count_nonzero(~solution_inside)))
         return SweepResult(
             names=space.names, lower=space.lower, upper=space.upper, log=space.log, design=request.design,
             points=starts, seed=request.seed, step_factors=np.array(request.step_factors), methods=request.methods,
@@ -278,11 +276,11 @@ class _Sweep:
             iterations_median=median, iterations_p90=p90, solution_params=merged.params, solution_ssr=merged.ssr,
             solution_shares=solution_shares, solution_level_with_best=level,
             solution_inside=solution_inside, solution_same_curve=equivalence.same_curve,
-            solution_exchange=equivalence.exchange, start=self.scenario.start, start_distance=start_distance,
+            solution_exchange=equivalence.exchange, curve_shares=curve_shares, start=self.scenario.start, start_distance=start_distance,
             region_level=REGION_LEVEL, region_min_starts=REGION_MIN_STARTS, region_radius=radius,
             region_lower=lower, region_upper=upper, region_starts=inside, region_share=share_inside,
             start_inside=inside_parameter.all(axis=-1), start_inside_parameter=inside_parameter,
-            recommended=recommended, recommendation_reason=reason, maps=maps, cases=cases,
+            recommended=recommended, recommendation_reason=reason, next_step=advice, maps=maps, cases=cases,
             chunks=dict(self.counters), cache=str(self.cache),
             warnings=self._warnings(merged, design_best, level & ~symmetric_inside, solution_inside, starts)
             + _symmetry_notes(equivalence, symmetric_inside, solution_shares, recommended, request))

@@ -69,7 +69,8 @@ class ChunkWork:
             ends[m] = fit.params.reshape(factors, count, -1)
             ssr[m] = fit.ssr.reshape(factors, count)
         converged = outcome == Outcome.CONVERGED
-        catalogue, labels = cluster(ends[converged], ssr[converged], self.solution_tolerance, limit=CATALOGUE_LIMIT)
+        catalogue, labels = cluster(ends[converged], ssr[converged], self.solution_tolerance, limit=CATALOGUE_LIMIT,
+                                    contains=self.design.space.contains)
         label = np.full(shape, NO_SOLUTION, dtype=np.int8)
         label[converged] = labels
         return {

@@ -108,6 +108,9 @@ class SweepResult:
             other parameters, a distinct minimum (a symmetry of the model, see
             ``equivalent_solutions``); solution_exchange: (S,) how its parameters map onto the
             best fit's (e.g. "a↔c, b↔d"), "" where no exchange or sign change explains it.
+        curve_shares: (M, F) share of starts reaching the best fit's curve: the best solution
+            or one marked same-curve (an alias of a frequency, an exchange of terms, a mirror
+            image), inside the ranges or not.
         start: (n,) the scenario's own starting values; start_distance: its distance from the
             best fit in unit-cube coordinates (largest over the parameters).
         region_radius: (M, F) half-width, in unit-cube coordinates, of the largest cube around
@@ -118,7 +121,10 @@ class SweepResult:
             (M, F) share of them reaching the best; start_inside: (M, F) whether the scenario's
             start lies within every safe range; start_inside_parameter: (M, F, n) per parameter.
         recommended: (method index, step factor index) or None when no run reached the best.
-        recommendation_reason: one line on why.
+        recommendation_reason: one line on why, naming the region the choice is safe from.
+        next_step: when no run reached the best, what to look at next (the derivative check for
+            a hand-written Jacobian that disagrees with central differences, identifiability
+            for rank loss, ...); "" otherwise.
         maps: the 2-D slices; cases: example runs with their paths.
         chunks: {"total", "reused", "computed"}; cache: the cache folder; warnings: notes.
         fingerprint: ``best_fit.scenario_fingerprint`` of the scenario swept, so that other
@@ -147,6 +153,7 @@ class SweepResult:
     solution_inside: np.ndarray
     solution_same_curve: np.ndarray
     solution_exchange: list[str]
+    curve_shares: np.ndarray
     start: np.ndarray
     start_distance: float
     region_level: float
@@ -160,6 +167,7 @@ class SweepResult:
     start_inside_parameter: np.ndarray
     recommended: tuple[int, int] | None
     recommendation_reason: str
+    next_step: str = ""
     maps: list[BasinMap] = field(default_factory=list)
     cases: list[TrajectoryCase] = field(default_factory=list)
     chunks: dict[str, int] = field(default_factory=dict)
@@ -206,6 +214,7 @@ class SweepResult:
         per_run = [
             {"method": method, "step_factor": factor,
              **{f"{label}_share": self.shares[m, f, k] for k, label in enumerate(CATEGORIES)},
+             "best_curve_share": self.curve_shares[m, f],
              "iterations_median": self.iterations_median[m, f, BEST],
              "iterations_p90": self.iterations_p90[m, f, BEST],
              "safe_radius": self.region_radius[m, f]}
@@ -231,6 +240,7 @@ class SweepResult:
             "reference": {"params": dict(zip(self.names, self.best_params)), "ssr": self.best_ssr}
             if len(self.solution_ssr) and self.solution_inside[0] else None,
             "recommendation": recommendation,
+            "next_step": self.next_step,
             "safe_region": {"level": self.region_level, "min_starts": self.region_min_starts,
                             "radius": self.region_radius, "lower": self.region_lower, "upper": self.region_upper,
                             "starts_inside": self.region_starts, "share_inside": self.region_share,

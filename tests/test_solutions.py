@@ -8,7 +8,7 @@ from scipy.optimize import least_squares
 from audit.equivalent_solutions import find_equivalent
 from audit.problem import Problem
 from audit.recommend import choose_step_factor
-from audit.solutions import UNCATALOGUED, Catalogue, SolutionTolerance, cluster, inside_first, merge_catalogues, relabel
+from audit.solutions import UNCATALOGUED, SolutionTolerance, cluster, merge_catalogues
 
 TOLERANCE = SolutionTolerance(parameter_relative=1e-4, floor=np.array([1e-3, 1e-3]), ssr_relative=1e-6,
                               ssr_floor=1e-20)
@@ -57,20 +57,23 @@ def test_catalogue_limit_marks_the_rest_uncatalogued():
     np.testing.assert_array_equal(labels, [0, 1, 2, 3] + [UNCATALOGUED] * 6)
 
 
-def test_inside_first_reorders_and_relabels():
-    # The reference row is the lowest SSR among the solutions inside the ranges; labels follow.
-    catalogue = Catalogue(params=np.array([[0.0], [1.0], [2.0]]), ssr=np.array([1.0, 2.0, 3.0]),
-                          count=np.array([5, 6, 7]))
-    reordered, new_row = inside_first(catalogue, np.array([False, True, True]))
-    assert list(reordered.ssr) == [2.0, 3.0, 1.0] and list(reordered.count) == [6, 7, 5]
-    assert list(relabel(np.array([0, 1, 2, UNCATALOGUED]), new_row)) == [2, 0, 1, UNCATALOGUED]
+def test_solutions_inside_the_ranges_lead_and_survive_the_cap():
+    # Ten distinct points with SSR 0..9; only the two worst lie inside the ranges (a > 8). With a
+    # cap of 4 the inside ones are kept first (the reference is the lowest SSR inside), then the
+    # two lowest outside; the definition of the ordering is the reference.
+    params = np.column_stack([np.arange(1.0, 11.0), np.ones(10)])
+    catalogue, labels = cluster(params, np.arange(10.0), TOLERANCE, limit=4, contains=lambda p: p[:, 0] > 8)
+    assert list(catalogue.ssr) == [8.0, 9.0, 0.0, 1.0]
+    np.testing.assert_array_equal(labels, [2, 3] + [UNCATALOGUED] * 6 + [0, 1])
 
 
 def test_recommendation_never_picks_a_setting_that_did_not_reach_the_best():
     # Settings with no start reaching the best have no iterations to compare: they cannot tie.
     share = np.array([[0.0, 0.003, 0.0]])
     median = np.array([[np.nan, 38.0, np.nan]])
-    assert choose_step_factor(share, median, np.array([1.0, 0.5, 0.25]))[0] == (0, 1)
+    no_region = np.full((1, 3), np.nan)
+    assert choose_step_factor(share, median, np.array([1.0, 0.5, 0.25]), ("gn",), no_region, np.zeros((1, 3)),
+                              no_region)[0] == (0, 1)
 
 
 def two_decays_problem() -> tuple[Problem, np.ndarray]:

@@ -32,11 +32,19 @@ each with every step factor, and sorts every run by how it ended:
   singular     the Jacobian lost rank
   model error  the model gave no finite values
 
+When some solution gives the best fit's curve with other parameters (an alias of a frequency at
+the sample points, exchanged terms, a mirror image), a "best curve" column counts the starts
+reaching that curve either way. When no run reached the best, the next step is named (the
+derivative check for a hand-written Jacobian that disagrees with central differences,
+identifiability when the Jacobian lost rank).
+
 For each step factor it reports the share of starts in each kind ("basin share" = best), the
 median and 90th-percentile iterations, and a safe starting region: the largest box around the
 best fit (in the axes' own linear or log units) inside which at least 99% of the starts
-reached the best solution. It recommends the step factor with the highest basin share (then
-the fewest iterations) and says whether the scenario's own start lies inside its safe region.
+reached the best solution. It recommends a step factor together with the region it is safe
+from: among the settings that have a safe region, the highest basin share (then the fewest
+iterations); the reason says why, and which setting with more successes had no safe region.
+It says whether the scenario's own start lies inside that region.
 
 Basin maps are 2-D slices through the best fit ([sweep] maps, default the first two
 parameters). Every finished chunk is cached under OUT/cache, so an interrupted sweep (Ctrl-C,
@@ -127,15 +135,17 @@ def show(result: SweepResult, files: list[Path]) -> None:
     out.print(f"[bold]{result.points} starts[/] ({result.design} design) × {len(result.step_factors)} step factor(s)"
               f"; {chunks['computed']} chunk(s) computed, {chunks['reused']} taken from the cache")
     table = Table(title="how the runs ended, per step factor (shares of the starts)", title_justify="left")
+    curve = bool(np.any(result.solution_same_curve))
     for heading in ("method", "step factor", *[label.replace("_", " ") for label in CATEGORIES],
-                    "iterations (median / 90%)", "safe radius"):
+                    *(("best curve",) if curve else ()), "iterations (median / 90%)", "safe radius"):
         table.add_column(heading, justify="left" if heading == "method" else "right")
     for m, method in enumerate(result.methods):
         for f, factor in enumerate(result.step_factors):
             mark = " *" if result.recommended == (m, f) else ""
             shares = [_share(result.shares[m, f, k]) for k in range(len(CATEGORIES))]
             iterations = f"{number(result.iterations_median[m, f, BEST])} / {number(result.iterations_p90[m, f, BEST])}"
-            table.add_row(method, f"{factor:g}{mark}", *shares, iterations, number(result.region_radius[m, f], 3))
+            same = (_share(result.curve_shares[m, f]),) if curve else ()
+            table.add_row(method, f"{factor:g}{mark}", *shares, *same, iterations, number(result.region_radius[m, f], 3))
     out.print(table)
     _show_solutions(result)
     _show_recommendation(result)
@@ -157,8 +167,7 @@ def _show_solutions(result: SweepResult) -> None:
         table.add_column(heading, justify="right")
     shown = min(len(result.solution_ssr), 8)
     for s in range(shown):
-        label = ("best" if s == 0 else str(s + 1)) + ("" if result.solution_inside[s] else " (outside ranges)") \
-            + (" (same curve)" if result.solution_same_curve[s] else "")
+        label = ("best" if s == 0 else str(s + 1)) + _solution_kind(result, s)
         table.add_row(label, number(result.solution_ssr[s], 8), *(number(v, 8) for v in result.solution_params[s]),
                       f"{np.max(result.solution_shares[..., s]):.1%}")
     out.print(table)
@@ -168,9 +177,20 @@ def _show_solutions(result: SweepResult) -> None:
         out.print(f"… and {len(result.solution_ssr) - shown} more in sweep.json{where}")
 
 
+def _solution_kind(result: SweepResult, s: int) -> str:
+    """How a listed solution relates to the reference, for its row label."""
+    if result.solution_same_curve[s]:
+        relation = f": {result.solution_exchange[s]}" if result.solution_exchange[s] else ""
+        return (f" (same curve{relation})" if result.solution_inside[s]
+                else f" (alias or mirror image, outside ranges{relation})")
+    return "" if result.solution_inside[s] else " (outside ranges)"
+
+
 def _show_recommendation(result: SweepResult) -> None:
     if result.recommended is None:
-        out.print(f"[red]no recommendation:[/] {result.recommendation_reason}")
+        out.print(f"[red]no recommendation:[/] {result.recommendation_reason}", soft_wrap=True)
+        if result.next_step:
+            out.print(f"[bold]next step:[/] {result.next_step}", soft_wrap=True)
         return
     m, f = result.recommended
     out.print(f"[bold]recommended:[/] {result.methods[m]} with step factor {result.step_factors[f]:g}: "
