@@ -6,8 +6,10 @@ leave-one-out (jackknife) data sets that give BCa its acceleration. The refits r
 (``chunk_size``) through ``parallel.map_chunks``; chunk k draws from a generator seeded by the
 scenario's seed and k alone, so the result is the same for any number of jobs or backend.
 
-Only the refits that reached the best fit's solution (see ``replicates``) enter the statistics;
-the share and kind of the others are reported as a robustness finding of their own.
+Only the refits that reached the best fit's solution enter the statistics: those that end where a
+Levenberg-Marquardt descent from the best fit on the same replicate data ends (see
+``replicates``), however far from the best fit that is. The share and kind of the others are
+reported as a robustness finding of their own. The leave-one-out estimates are such descents.
 """
 from __future__ import annotations
 
@@ -25,7 +27,7 @@ from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percen
 from .jsonable import jsonable
 from .parallel import ParallelPlan, map_chunks
 from .problem import Problem
-from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale
+from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale, same_point
 from .resampling import Scheme, build_scheme, leave_one_out
 from .scenario import Scenario
 from .best_fit import KnownFit, SweepReference, best_known_fit
@@ -148,14 +150,17 @@ class _ChunkFits:
 
     params: np.ndarray
     ssr: np.ndarray
-    ssr_at_best: np.ndarray
     outcome: np.ndarray
     iterations: np.ndarray
+    descent: np.ndarray
+    descent_outcome: np.ndarray
+    same_point: np.ndarray
 
 
 @dataclass(frozen=True, eq=False)
 class _Refitter:
-    """Draws (or builds) the data of one chunk and refits it; runs inside the workers.
+    """Draws (or builds) the data of one chunk, refits it and checks where each refit ended;
+    runs inside the workers.
 
     Compared and hashed by identity (eq=False): its fields hold arrays, and the Dask backend
     hashes the function it sends."""
@@ -163,20 +168,33 @@ class _Refitter:
     problem: Problem
     scheme: Scheme
     best: np.ndarray
+    scale: np.ndarray
     refit: RefitSettings
     seed: int
 
     def __call__(self, chunk: _Chunk) -> _ChunkFits:
         if chunk.kind == "bootstrap":
-            generator = np.random.default_rng(np.random.SeedSequence(self.seed, spawn_key=(chunk.index,)))
-            problem, data = self.problem, self.scheme.draw(generator, chunk.count)
+            problem, data = self.problem, self.scheme.draw(chunk_generator(self.seed, chunk.index), chunk.count)
         else:
             problem, data = leave_one_out(self.problem, chunk.first, chunk.count)
         starts = np.tile(self.best, (chunk.count, 1))
-        fit = fit_batch(problem, starts, self.refit.step_factor, y=data.y, x=data.x, weights=data.weights,
-                        method=self.refit.method, tol=self.refit.tolerance, max_iter=self.refit.max_iterations)
-        return _ChunkFits(params=fit.params, ssr=fit.ssr, ssr_at_best=problem.ssr(starts, data.x, data.y, data.weights),
-                          outcome=fit.outcome, iterations=fit.iterations)
+        options = dict(y=data.y, x=data.x, weights=data.weights, tol=self.refit.tolerance,
+                       max_iter=self.refit.max_iterations)
+        # The descent from the best fit tells its basin: full Levenberg-Marquardt steps, each one
+        # lowering the SSR; refits that are such runs already are their own descent. The
+        # leave-one-out estimates are descents alone: BCa's acceleration measures how the
+        # estimate moves with each observation, not how the refits' solver copes, and a set
+        # missing the observations where that solver failed would skew it.
+        descends = chunk.kind == "jackknife" or (self.refit.method == "lm" and self.refit.step_factor == 1.0)
+        if descends:
+            fit = descent = fit_batch(problem, starts, 1.0, method="lm", **options)
+        else:
+            fit = fit_batch(problem, starts, self.refit.step_factor, method=self.refit.method, **options)
+            descent = fit_batch(problem, starts, 1.0, method="lm", **options)
+        same = same_point(problem, fit.params, descent.params, self.scale, y=data.y, x=data.x,
+                          weights=data.weights)
+        return _ChunkFits(params=fit.params, ssr=fit.ssr, outcome=fit.outcome, iterations=fit.iterations,
+                          descent=descent.params, descent_outcome=descent.outcome, same_point=same)
 
 
 def run_bootstrap(problem: Problem, best: np.ndarray, *, method: str = "residual", samples: int = 2000,
@@ -219,13 +237,13 @@ def run_bootstrap(problem: Problem, best: np.ndarray, *, method: str = "residual
     size = chunk_size(problem)
     chunks = _chunks("bootstrap", int(samples), size) + _chunks("jackknife", problem.n_obs, size)
     pieces: dict[str, list[_ChunkFits]] = {"bootstrap": [], "jackknife": []}
-    worker = _Refitter(problem=problem, scheme=scheme, best=best, refit=refit, seed=int(seed))
+    scale = distance_scale(asymptotic.std_errors, best, problem.typical)
+    worker = _Refitter(problem=problem, scheme=scheme, best=best, scale=scale, refit=refit, seed=int(seed))
     for chunk, fits in zip(chunks, map_chunks(worker, chunks, plan or ParallelPlan(jobs=1))):
         pieces[chunk.kind].append(fits)
         if progress is not None:
             progress(chunk.count)
-    scale = distance_scale(asymptotic.std_errors, best, problem.typical)
-    replicates, jackknife = (_classified(pieces[kind], best, scale) for kind in ("bootstrap", "jackknife"))
+    replicates, jackknife = (_classified(pieces[kind]) for kind in ("bootstrap", "jackknife"))
     result = _summarise(problem, best, asymptotic, replicates, jackknife, method=method,
                         wild_multipliers=wild_multipliers if method == "wild" else None,
                         leverage_adjusted=leverage_adjusted and method != "pairs", samples=int(samples),
@@ -241,16 +259,22 @@ def chunk_size(problem: Problem) -> int:
     return int(np.clip(CHUNK_ELEMENTS // problem.n_obs, MIN_CHUNK, MAX_CHUNK))
 
 
+def chunk_generator(seed: int, index: int) -> np.random.Generator:
+    """The generator bootstrap chunk ``index`` draws its replicates from: the seed and the index
+    alone decide it, never the worker that runs the chunk."""
+    return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(index,)))
+
+
 def _chunks(kind: str, total: int, size: int) -> list[_Chunk]:
     return [_Chunk(kind=kind, index=k, first=first, count=min(size, total - first))
             for k, first in enumerate(range(0, total, size))]
 
 
-def _classified(pieces: list[_ChunkFits], best: np.ndarray, scale: np.ndarray) -> ReplicateFits:
+def _classified(pieces: list[_ChunkFits]) -> ReplicateFits:
     def joined(name: str) -> np.ndarray:
         return np.concatenate([getattr(piece, name) for piece in pieces])
-    return classify(joined("params"), joined("ssr"), joined("ssr_at_best"), joined("outcome"),
-                    joined("iterations"), best, scale)
+    return classify(joined("params"), joined("ssr"), joined("outcome"), joined("iterations"), joined("descent"),
+                    joined("descent_outcome"), joined("same_point"))
 
 
 def _summarise(problem: Problem, best: np.ndarray, asymptotic: Estimates, replicates: ReplicateFits,

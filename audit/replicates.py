@@ -1,14 +1,20 @@
 """Refits of replicate data sets (bootstrap or jackknife) and how each one ended.
 
 A refit starts at the best fit. Its fate is its engine outcome, except that a converged refit is
-split in two by comparing its end point with the best fit:
+split in two by where a descent from the best fit on the same replicate data ends (a
+Levenberg-Marquardt refit: every step it takes lowers the SSR, so it ends at the minimum whose
+basin holds the best fit; the refit itself when the refits already are such runs):
 
-- best: converged to the solution that belongs to the best fit: the end point's residual sum of
-  squares (on the replicate's own data) is no worse than that of the best fit's parameters, and
-  no parameter moved more than FAR_AWAY asymptotic standard errors;
-- other: converged, but to a worse point than it started from, or to a point far away (another
-  solution, e.g. a swapped pair of exponentials). Its values would mix two solutions into one
-  interval, so it is left out like a failed refit.
+- best: the refit ends at that same point, i.e. in the best fit's solution, however far from
+  the best fit that point lies (a long tail is what the bootstrap is run to show);
+- other: it ends elsewhere (a Gauss-Newton step jumped into another basin: another local
+  minimum, an alias, a mirror image), or the descent did not converge, so nothing confirms
+  the solution. Its values would mix two solutions into one interval, so it is left out like a
+  failed refit.
+
+Two end points are the same point when their curves agree on the replicate's data as closely as
+the sweep's same-curve test demands and no parameter differs by SAME_POINT standard errors (a
+mirror image gives the same curve with parameters many standard errors away).
 """
 from __future__ import annotations
 
@@ -16,25 +22,22 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .equivalent_solutions import CURVE_FLOOR, CURVE_TOLERANCE
 from .jsonable import jsonable
 from .outcomes import Outcome
+from .problem import Problem
 
-#: A parameter that moved this many asymptotic standard errors is taken to have left the best
-#: fit's solution. A design choice, set generously: the tails of a skewed bootstrap distribution
-#: (the very thing the bootstrap is run to show) usually stay within a few standard errors, a
-#: swapped or mirrored solution lies much farther out. A parameter with a very long tail (a time
-#: constant whose rate may reach zero) also loses refits here; the result then says that the
-#: intervals rest on fewer refits than drawn and on which side that matters.
-FAR_AWAY = 20.0
-#: Relative slack on the comparison of residual sums of squares: a converged refit lies within
-#: rounding of a stationary point, so only a clear excess means it ended worse than its start.
-SSR_SLACK = 1e-6
+#: Two converged end points of one minimum differ by the solver's tolerance, far below a
+#: standard error; two distinct minima with the same curve (symmetries) lie many apart.
+SAME_POINT = 1.0
 
 #: Kinds of end, in the order of the figures' outcome styles.
 FATES = ("best", "other", "diverged", "oscillating", "stalled", "singular", "model_error")
 FATE_MEANINGS = {
-    "best": "converged to the solution of the best fit; used in the intervals",
-    "other": f"converged, but to a point worse than its start or over {FAR_AWAY:g} standard errors away",
+    "best": "converged to the point a descent from the best fit reaches on the same data: the best fit's "
+            "solution; used in the intervals",
+    "other": "converged elsewhere than a descent from the best fit on the same data (another solution), or "
+             "that descent did not converge; left out of the intervals",
     **{outcome.label: outcome.meaning for outcome in Outcome if outcome != Outcome.CONVERGED},
 }
 BEST, OTHER = 0, 1
@@ -47,21 +50,21 @@ class ReplicateFits:
     Attributes:
         params: (B, n) end points.
         ssr: (B,) weighted residual sum of squares at the end point, on the replicate's data.
-        ssr_at_best: (B,) the same at the best fit's parameters (where every refit started).
         outcome: (B,) engine ``Outcome`` codes.
         iterations: (B,) steps taken.
-        distance: (B,) largest parameter move from the best fit, in asymptotic standard errors.
-        worse: (B,) True where the end point's SSR exceeds that at the best fit's parameters.
+        descent: (B, n) where the descent from the best fit on the same data ended.
+        descent_outcome: (B,) its ``Outcome`` codes.
+        same_point: (B,) True where the refit and the descent end at the same point.
         fate: (B,) index into FATES.
     """
 
     params: np.ndarray
     ssr: np.ndarray
-    ssr_at_best: np.ndarray
     outcome: np.ndarray
     iterations: np.ndarray
-    distance: np.ndarray
-    worse: np.ndarray
+    descent: np.ndarray
+    descent_outcome: np.ndarray
+    same_point: np.ndarray
     fate: np.ndarray
 
     @property
@@ -84,11 +87,12 @@ class ReplicateFits:
         return {label: count / total for label, count in self.counts().items()}
 
     def other_reasons(self) -> dict[str, int]:
-        """Why converged refits count as "other": ended worse than they started, or far away
-        (a refit can be both)."""
+        """Why converged refits count as "other": they reached another solution than the descent
+        from the best fit, or that descent did not converge (nothing to compare with)."""
         other = self.fate == OTHER
-        return {"worse_than_start": int(np.count_nonzero(other & self.worse)),
-                "far_away": int(np.count_nonzero(other & ~(self.distance <= FAR_AWAY)))}
+        descended = self.descent_outcome == Outcome.CONVERGED
+        return {"another_solution": int(np.count_nonzero(other & descended)),
+                "descent_failed": int(np.count_nonzero(other & ~descended))}
 
     @property
     def failure_share(self) -> float:
@@ -99,37 +103,56 @@ class ReplicateFits:
         return jsonable({
             "count": len(self.fate), "used": self.used_count, "failure_share": self.failure_share,
             "counts": self.counts(), "shares": self.shares(), "other_reasons": self.other_reasons(),
-            "far_away_limit": FAR_AWAY,
             "fate": [FATES[k] for k in self.fate], "params": self.params, "ssr": self.ssr,
-            "ssr_at_best": self.ssr_at_best, "iterations": self.iterations, "distance": self.distance,
+            "iterations": self.iterations, "descent": self.descent,
+            "descent_outcome": [Outcome(int(code)).label for code in self.descent_outcome],
         })
 
 
-def classify(params: np.ndarray, ssr: np.ndarray, ssr_at_best: np.ndarray, outcome: np.ndarray,
-             iterations: np.ndarray, best: np.ndarray, scale: np.ndarray) -> ReplicateFits:
+def same_point(problem: Problem, refit: np.ndarray, descent: np.ndarray, scale: np.ndarray, *,
+               y: np.ndarray, x: np.ndarray | None = None, weights: np.ndarray | None = None) -> np.ndarray:
+    """(B,) True where two end points on the same replicate data are one point.
+
+    Args:
+        problem: the fitted problem.
+        refit, descent: (B, n) the two end points of each replicate.
+        scale: (n,) positive parameter unit (asymptotic standard errors, see ``distance_scale``).
+        y, x, weights: the replicates' data, as ``fit_batch`` takes them.
+    """
+    refit_residuals = problem.residuals(refit, x, y, weights)
+    descent_residuals = problem.residuals(descent, x, y, weights)
+    root_weights = problem.sqrt_weights if weights is None else np.sqrt(weights)
+    weighted_y = y if root_weights is None else y * root_weights
+    with np.errstate(invalid="ignore", over="ignore"):
+        limit = (CURVE_TOLERANCE * np.linalg.norm(descent_residuals, axis=-1)
+                 + CURVE_FLOOR * np.linalg.norm(np.broadcast_to(weighted_y, refit_residuals.shape), axis=-1))
+        same_curve = np.linalg.norm(refit_residuals - descent_residuals, axis=-1) <= limit
+        near = np.max(np.abs(refit - descent) / scale, axis=-1) <= SAME_POINT
+    return same_curve & near
+
+
+def classify(params: np.ndarray, ssr: np.ndarray, outcome: np.ndarray, iterations: np.ndarray,
+             descent: np.ndarray, descent_outcome: np.ndarray, same: np.ndarray) -> ReplicateFits:
     """Give every refit its fate.
 
     Args:
-        params, ssr, ssr_at_best, outcome, iterations: per refit, as in ``ReplicateFits``.
-        best: (n,) the best fit.
-        scale: (n,) positive distance unit per parameter (asymptotic standard errors).
+        params, ssr, outcome, iterations, descent, descent_outcome: per refit, as in ``ReplicateFits``.
+        same: (B,) ``same_point`` of the refit and the descent.
     """
-    with np.errstate(invalid="ignore", over="ignore"):
-        distance = np.max(np.abs(params - best) / scale, axis=1)
-        worse = ssr > ssr_at_best * (1.0 + SSR_SLACK) + np.finfo(float).tiny
     fate = np.empty(len(outcome), dtype=np.int64)
     for code in Outcome:
         if code != Outcome.CONVERGED:
             fate[outcome == code] = FATES.index(code.label)
     converged = outcome == Outcome.CONVERGED
-    fate[converged] = np.where(worse[converged] | ~(distance[converged] <= FAR_AWAY), OTHER, BEST)
-    return ReplicateFits(params=params, ssr=ssr, ssr_at_best=ssr_at_best, outcome=outcome,
-                         iterations=iterations, distance=distance, worse=worse, fate=fate)
+    confirmed = same & (descent_outcome == Outcome.CONVERGED)
+    fate[converged] = np.where(confirmed[converged], BEST, OTHER)
+    return ReplicateFits(params=params, ssr=ssr, outcome=outcome, iterations=iterations, descent=descent,
+                         descent_outcome=descent_outcome, same_point=same, fate=fate)
 
 
 def distance_scale(std_errors: np.ndarray, best: np.ndarray, typical: np.ndarray | None) -> np.ndarray:
-    """(n,) unit of the distance test: the asymptotic standard error, or where that is not
-    finite (a singular Jacobian at the best fit) the parameter's own size."""
+    """(n,) parameter unit of the same-point test: the asymptotic standard error, or where that
+    is not finite (a singular Jacobian at the best fit) the parameter's own size."""
     fallback = np.abs(best) if typical is None else np.maximum(np.abs(best), 1e-3 * typical)
     fallback = np.where(fallback > 0, fallback, 1.0)
     return np.where(np.isfinite(std_errors) & (std_errors > 0), std_errors, fallback)

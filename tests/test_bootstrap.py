@@ -21,7 +21,7 @@ from audit.intervals import bca_interval, jackknife_acceleration, percentile_int
 from audit.outcomes import Outcome
 from audit.parallel import ParallelPlan
 from audit.problem import Problem
-from audit.replicates import FAR_AWAY, FATES, classify
+from audit.replicates import FATES, classify, same_point
 from audit.resampling import PairsScheme, WildScheme, leave_one_out, leverages
 from audit.scenario import load_scenario
 
@@ -264,18 +264,29 @@ def test_t_interval_crossing_zero_for_a_positive_time_constant_is_flagged_and_fa
     assert any("left out of the intervals" in note for note in result.notes)
 
 
-def test_fates_split_converged_refits_by_ssr_and_distance():
-    best, scale = np.array([1.0, 2.0]), np.array([0.1, 0.1])
-    params = np.array([[1.05, 2.0], [1.05, 2.0], [1.0 + 1.01 * FAR_AWAY * 0.1, 2.0], [np.nan, 2.0], [1.0, 2.0]])
-    ssr = np.array([1.0, 3.0, 0.5, np.nan, 1.0])
-    ssr_at_best = np.array([2.0, 2.0, 2.0, 2.0, 2.0])
-    outcome = np.array([Outcome.CONVERGED, Outcome.CONVERGED, Outcome.CONVERGED, Outcome.DIVERGED,
-                        Outcome.OSCILLATING])
-    fits = classify(params, ssr, ssr_at_best, outcome, np.zeros(5, dtype=int), best, scale)
-    # Converged near and better than the start: best. Worse than the start, or far away: other.
-    assert [FATES[k] for k in fits.fate] == ["best", "other", "other", "diverged", "oscillating"]
-    assert fits.failure_share == pytest.approx(0.8) and fits.counts()["other"] == 2
-    assert fits.other_reasons() == {"worse_than_start": 1, "far_away": 1}
+def test_fates_split_converged_refits_by_where_the_descent_from_the_best_fit_ends():
+    x = np.linspace(0.0, 6.0, 30)
+    problem = Problem(model=lambda x, a, b: a * np.sin(x + b), x=x, y=1.5 * np.sin(x + 0.3), names=("a", "b"))
+    y = np.tile(problem.y + np.random.default_rng(8).normal(0.0, 0.1, x.size), (4, 1))
+    descent = np.tile([1.5, 0.3], (4, 1))
+    refits = np.array([[1.5 + 1e-9, 0.3 - 1e-9],       # the descent's point to solver precision
+                       [-1.5, 0.3 + np.pi],             # mirror image: a·sin(x + b) = −a·sin(x + b + π)
+                       [1.2, 0.3],                      # a different curve
+                       [1.5, 0.3]])
+    scale = np.array([0.05, 0.05])
+    same = same_point(problem, refits, descent, scale, y=y)
+    # Hand derivation: only the first and last are the descent's point; the mirror image gives
+    # the same curve (sin(u + π) = −sin u) 60 standard errors away, the third another curve.
+    assert same.tolist() == [True, False, False, True]
+    outcome = np.array([Outcome.CONVERGED, Outcome.CONVERGED, Outcome.CONVERGED, Outcome.OSCILLATING])
+    descent_outcome = np.array([Outcome.CONVERGED] * 4)
+    fits = classify(refits, np.zeros(4), outcome, np.zeros(4, dtype=int), descent, descent_outcome, same)
+    assert [FATES[k] for k in fits.fate] == ["best", "other", "other", "oscillating"]
+    assert fits.other_reasons() == {"another_solution": 2, "descent_failed": 0}
+    # Without a converged descent nothing confirms the solution: left out, with its reason.
+    stalled = np.array([Outcome.STALLED] + [Outcome.CONVERGED] * 3)
+    unconfirmed = classify(refits, np.zeros(4), outcome, np.zeros(4, dtype=int), descent, stalled, same)
+    assert FATES[unconfirmed.fate[0]] == "other" and unconfirmed.other_reasons()["descent_failed"] == 1
 
 
 # --------------------------------------------------------------------------- parallel, CLI, figures

@@ -34,9 +34,10 @@ the refitted parameters beside them:
 
 Per parameter: bootstrap mean, bias, standard error, percentile and BCa intervals, the width
 ratio against the t interval, and a flag with a plain reason where the two disagree (widths,
-asymmetry, a t interval crossing zero for a parameter that stays positive, bias). Refits that
-did not converge, or converged to another solution, are counted by kind and left out of the
-intervals.
+asymmetry, a t interval crossing zero for a parameter that stays positive, bias). A refit counts
+as the best fit's only where a Levenberg-Marquardt descent from the best fit on the same data
+ends at the same point; refits that did not converge, or converged to another solution, are
+counted by kind and left out of the intervals. The leave-one-out refits (BCa) are such descents.
 
 Writes OUT/bootstrap.json and OUT/figures/bootstrap-histograms.{png,pdf} and
 OUT/figures/bootstrap-pairs.{png,pdf}. Results depend on the scenario's [bootstrap] seed, never
@@ -131,7 +132,8 @@ def show(result: BootstrapResult, files: list[Path]) -> None:
         if count or jackknife[label]:
             meaning = FATE_MEANINGS[label]
             if label == "other":
-                meaning += f" ({reasons['worse_than_start']} worse, {reasons['far_away']} far away)"
+                meaning += (f" ({reasons['another_solution']} another solution, "
+                            f"{reasons['descent_failed']} descent did not converge)")
             fates.add_row(label.replace("_", " "), str(count), f"{shares[label]:.1%}", str(jackknife[label]), meaning)
     out.print(fates)
     if result.flags:
