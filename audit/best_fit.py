@@ -7,7 +7,7 @@ the wrong fit. ``best_known_fit`` chooses between
 
 * the sweep's reference, the lowest SSR inside the searched ranges (``SweepReference``, read
   from the sweep's JSON by the command line when it was written for the same scenario, which
-  ``scenario_fingerprint`` tells), and
+  ``scenario.solutions_fingerprint`` tells), and
 * the lowest-SSR converged fit from the scenario's start over the step factors and one
   Levenberg-Marquardt run (``single_fit.best_from_start``),
 
@@ -16,20 +16,13 @@ fit, later a profile refit) so that the stages can say so loudly instead of stay
 """
 from __future__ import annotations
 
-import hashlib
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING
-
 import numpy as np
 
 from .jsonable import jsonable
 from .outcomes import Outcome
 from .problem import Problem
-from .settings import SolverSettings
 from .single_fit import best_from_start
-
-if TYPE_CHECKING:
-    from .scenario import Scenario
 
 FROM_SWEEP, FROM_START = "sweep", "scenario start"
 SOURCE_MEANINGS = {
@@ -59,24 +52,6 @@ class SweepReference:
     upper: np.ndarray
     outside_params: np.ndarray
     outside_ssr: np.ndarray
-
-    @classmethod
-    def from_sweep_json(cls, payload: dict, names: tuple[str, ...]) -> "SweepReference | None":
-        """The reference in a sweep's ``to_dict()`` output, or None when it holds none.
-
-        Whether the sweep belongs to the same scenario is the caller's check (its fingerprint).
-        """
-        reference = payload.get("reference")
-        if reference is None:
-            return None
-        parameters = {entry["name"]: entry["range"] for entry in payload["parameters"]}
-        outside = [entry for entry in payload["solutions"] if not entry["inside_ranges"]]
-        return cls(params=_values(reference["params"], names), ssr=float(reference["ssr"]),
-                   lower=_values({name: parameters[name][0] for name in names}, names),
-                   upper=_values({name: parameters[name][1] for name in names}, names),
-                   outside_params=np.array([_values(entry["params"], names)
-                                            for entry in outside]).reshape(-1, len(names)),
-                   outside_ssr=_values([entry["ssr"] for entry in outside], None))
 
     def inside(self, params: np.ndarray) -> bool:
         """Whether ``params`` (n,) lies within every range (a missing range never excludes)."""
@@ -145,8 +120,8 @@ class KnownFit:
         })
 
 
-def best_known_fit(problem: Problem, start: np.ndarray, solver: SolverSettings,
-                   reference: SweepReference | None = None, *, accept_lost_rank: bool = False) -> KnownFit | None:
+def best_known_fit(problem: Problem, start: np.ndarray, *, step_factors, method: str, tol: float, max_iter: int,
+                   reference: SweepReference | None = None, accept_lost_rank: bool = False) -> KnownFit | None:
     """The fit to audit: the sweep's in-range reference, or the best fit from ``start``.
 
     The fit from the start is always run (a handful of runs): it replaces the sweep's reference
@@ -157,7 +132,8 @@ def best_known_fit(problem: Problem, start: np.ndarray, solver: SolverSettings,
         problem: the scenario's problem (the derivative check passes one without the
             hand-derived Jacobian, so that a wrong derivative cannot move its point).
         start: (n,) the scenario's starting values.
-        solver: the scenario's [solver] settings (step factors, method, tolerance, iterations).
+        step_factors, method, tol, max_iter: how the fits from the start run (a scenario's
+            [solver] settings give them through ``SolverSettings.fit_options``).
         reference: what a sweep of the same scenario found, or None.
         accept_lost_rank: take a settled Levenberg-Marquardt run on a lost rank when nothing
             from the start converged (see ``best_from_start``).
@@ -165,7 +141,8 @@ def best_known_fit(problem: Problem, start: np.ndarray, solver: SolverSettings,
     Returns:
         The KnownFit, or None when there is no reference and nothing from the start converged.
     """
-    found = best_from_start(problem, start, solver, accept_lost_rank)
+    found = best_from_start(problem, start, step_factors=step_factors, method=method, tol=tol, max_iter=max_iter,
+                            accept_lost_rank=accept_lost_rank)
     from_start = None
     if found is not None:
         params, outcome = found
@@ -193,33 +170,5 @@ def best_known_fit(problem: Problem, start: np.ndarray, solver: SolverSettings,
     return audited
 
 
-def scenario_fingerprint(scenario: "Scenario") -> str:
-    """A digest of what decides a scenario's solutions: data, model, parameter ranges, solver.
-
-    Unlike ``Scenario.fingerprint`` (every byte of the TOML), settings of other stages (the
-    bootstrap's seed, the sweep's number of points) do not change it, so a sweep stays the
-    reference for the other stages until the problem itself changes.
-    """
-    problem = scenario.problem
-    digest = hashlib.sha256()
-    for array in (problem.x, problem.y, problem.weights):
-        digest.update(b"-" if array is None else np.ascontiguousarray(array, dtype=float).tobytes())
-        digest.update(b"\0")
-    model = scenario.model_path.read_bytes() if scenario.model_path is not None else b""
-    parts = [model, getattr(problem.model, "__name__", "").encode(), (problem.formula or "").encode(),
-             repr([(p.name, p.lower, p.upper, p.axis) for p in scenario.parameters]).encode(),
-             repr(sorted(vars(scenario.solver).items())).encode()]
-    for part in parts:
-        digest.update(part)
-        digest.update(b"\0")
-    return digest.hexdigest()
-
-
 def _ssr(problem: Problem, params: np.ndarray) -> float:
     return float(problem.ssr(np.asarray(params, dtype=float)[None, :])[0])
-
-
-def _values(mapping, names: tuple[str, ...] | None) -> np.ndarray:
-    """Floats (JSON null as NaN) from a {name: value} mapping in ``names`` order, or from a list."""
-    values = [mapping[name] for name in names] if names is not None else mapping
-    return np.array([np.nan if value is None else value for value in values], dtype=float)

@@ -361,7 +361,7 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
                           method=solver.method, tolerance=solver.tolerance, max_iterations=solver.max_iterations)
     if not 0 < refit.step_factor <= 1:
         raise InputError(f"step factor {refit.step_factor}: must lie in (0, 1]")
-    known = best_known_fit(scenario.problem, scenario.start, solver, reference)
+    known = best_known_fit(scenario.problem, scenario.start, **solver.fit_options(), reference=reference)
     if known is None:
         raise InputError(f"{scenario.path}: no fit from the scenario's start converged, with any of the step "
                          "factors or with Levenberg-Marquardt; the bootstrap needs a converged fit: find a "

@@ -83,7 +83,8 @@ def check_points(problem: Problem, parameters: tuple[Parameter, ...], solver: So
     """
     start = np.array([parameter.start for parameter in parameters])
     rows, labels, notes = [], [], []
-    fitted = best_known_fit(dataclasses.replace(problem, jacobian=None), start, solver, reference)
+    fitted = best_known_fit(dataclasses.replace(problem, jacobian=None), start, **solver.fit_options(),
+                            reference=reference)
     if fitted is None:
         notes.append("no fit from the start converged (step-factor Gauss-Newton or Levenberg-Marquardt), "
                      "so the best fit is not among the check points")

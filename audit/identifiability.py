@@ -32,7 +32,6 @@ from .parallel import ParallelPlan
 from .problem import Problem
 from .profiles import SIDE_STATUS, Profiles, plan_grid, profile_all
 from .settings import IdentifiabilitySettings, SolverSettings
-from .single_fit import best_from_start
 from .weak_directions import WEAK_INDEX, condition_indices, describe, singular_values, weak_rows
 
 
@@ -154,22 +153,6 @@ class Identifiability:
             "collinearity": self.collinearity, "rank_check": self.rank, "profiles": self.profiles,
             "audited_fit": self.audited_fit,
         })
-
-
-def best_fit(problem: Problem, start: np.ndarray, solver: SolverSettings) -> tuple[np.ndarray, str]:
-    """The best fit reachable from ``start`` (``single_fit.best_from_start``), a settled
-    Levenberg-Marquardt run on a lost rank included.
-
-    Returns:
-        (params (n,), outcome label).
-
-    Raises:
-        InputError: when no run converged or settled.
-    """
-    found = best_from_start(problem, start, solver, accept_lost_rank=True)
-    if found is None:
-        raise InputError(NO_FIT)
-    return found[0], found[1].label
 
 
 def rank_check(problem: Problem, params: np.ndarray, lower: np.ndarray, upper: np.ndarray, log_axis: np.ndarray,
@@ -318,7 +301,8 @@ def identify_scenario(scenario, *, points: int | None = None, plan: ParallelPlan
         if points < 5:
             raise InputError(f"--points {points}: a profile needs at least 5 grid points")
         settings = replace(settings, profile_points=points)
-    known = best_known_fit(scenario.problem, scenario.start, scenario.solver, reference, accept_lost_rank=True)
+    known = best_known_fit(scenario.problem, scenario.start, **scenario.solver.fit_options(), reference=reference,
+                           accept_lost_rank=True)
     if known is None:
         raise InputError(NO_FIT)
     lower = np.array([p.lower for p in scenario.parameters])

@@ -299,3 +299,25 @@ def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> No
         if broken:
             raise InputError(f"{path}: the jacobian gives non-finite values at the starting values "
                              f"for {', '.join(broken)}")
+
+
+def solutions_fingerprint(scenario: Scenario) -> str:
+    """A digest of what decides a scenario's solutions: data, model, parameter ranges, solver.
+
+    Unlike ``Scenario.fingerprint`` (every byte of the TOML), settings of other stages (the
+    bootstrap's seed, the sweep's number of points) do not change it, so a sweep stays the
+    reference for the other stages until the problem itself changes.
+    """
+    problem = scenario.problem
+    digest = hashlib.sha256()
+    for array in (problem.x, problem.y, problem.weights):
+        digest.update(b"-" if array is None else np.ascontiguousarray(array, dtype=float).tobytes())
+        digest.update(b"\0")
+    model = scenario.model_path.read_bytes() if scenario.model_path is not None else b""
+    parts = [model, getattr(problem.model, "__name__", "").encode(), (problem.formula or "").encode(),
+             repr([(p.name, p.lower, p.upper, p.axis) for p in scenario.parameters]).encode(),
+             repr(sorted(vars(scenario.solver).items())).encode()]
+    for part in parts:
+        digest.update(part)
+        digest.update(b"\0")
+    return digest.hexdigest()

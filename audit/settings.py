@@ -25,6 +25,11 @@ class SolverSettings:
     tolerance: float = 1e-8
     max_iterations: int = 200
 
+    def fit_options(self) -> dict:
+        """The keyword arguments of the engine's best-fit helpers (``single_fit.best_from_start``)."""
+        return dict(step_factors=self.step_factors, method=self.method, tol=self.tolerance,
+                    max_iter=self.max_iterations)
+
 
 @dataclass(frozen=True)
 class SweepSettings:

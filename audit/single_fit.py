@@ -17,7 +17,6 @@ from .estimates import Estimates, estimate
 from .jsonable import jsonable
 from .outcomes import Outcome
 from .problem import FLOOR_FRACTION, Problem
-from .settings import SolverSettings
 
 
 @dataclass
@@ -94,22 +93,24 @@ def fit_once(problem: Problem, start: np.ndarray, *, step_factor: float = 1.0, m
                      iterates=iterates, ssr=ssr, max_rel_change=change, outcome=outcome, estimates=estimates)
 
 
-def best_from_start(problem: Problem, start: np.ndarray, solver: SolverSettings,
+def best_from_start(problem: Problem, start: np.ndarray, *, step_factors, method: str, tol: float, max_iter: int,
                     accept_lost_rank: bool = False) -> tuple[np.ndarray, Outcome] | None:
     """The lowest-SSR converged fit from ``start`` (n,), or None when nothing converges.
 
-    Every step factor of ``solver`` runs with its method, plus one Levenberg-Marquardt run, all
-    from the same start. With ``accept_lost_rank``, a Levenberg-Marquardt run that settled where
-    the Jacobian lost rank (the floor of the valley of a structurally non-identifiable model)
-    is taken when nothing converged.
+    Every step factor in ``step_factors`` runs with ``method``, plus one Levenberg-Marquardt run,
+    all from the same start with tolerance ``tol`` and at most ``max_iter`` iterations (a
+    scenario's [solver] settings give these through ``SolverSettings.fit_options``). With
+    ``accept_lost_rank``, a Levenberg-Marquardt run that settled where the Jacobian lost rank
+    (the floor of the valley of a structurally non-identifiable model) is taken when nothing
+    converged.
 
     Returns:
         (params (n,), outcome) of the chosen run, or None.
     """
     start = np.asarray(start, dtype=float)
-    factors = np.array(solver.step_factors)
-    options = dict(tol=solver.tolerance, max_iter=solver.max_iterations)
-    stepped = fit_batch(problem, np.tile(start, (len(factors), 1)), factors, method=solver.method, **options)
+    factors = np.array(step_factors, dtype=float)
+    options = dict(tol=tol, max_iter=max_iter)
+    stepped = fit_batch(problem, np.tile(start, (len(factors), 1)), factors, method=method, **options)
     damped = fit_batch(problem, start[None, :], 1.0, method="lm", **options)
     params = np.vstack([stepped.params, damped.params])
     ssr = np.concatenate([stepped.ssr, damped.ssr])

@@ -34,6 +34,7 @@ from .errors import InputError
 from .parallel import ParallelPlan, map_chunks
 from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
                         safe_regions)
+from .scenario import solutions_fingerprint
 from .settings import nearest
 from .solutions import Catalogue, SolutionTolerance, merge_catalogues
 from .starts import StartDesign, make_design, map_axis_values, map_design, search_space
@@ -270,7 +271,7 @@ class _Sweep:
         advice = "" if recommended is not None else next_step(self.problem, self.scenario.start, tally.counts,
                                                                int(np.count_nonzero(~solution_inside)))
         return SweepResult(
-            names=space.names, lower=space.lower, upper=space.upper, log=space.log, design=request.design,
+            names=space.names, fingerprint=solutions_fingerprint(self.scenario), lower=space.lower, upper=space.upper, log=space.log, design=request.design,
             points=starts, seed=request.seed, step_factors=np.array(request.step_factors), methods=request.methods,
             tolerance=request.tolerance, max_iterations=request.max_iterations, counts=tally.counts, shares=shares,
             iterations_median=median, iterations_p90=p90, solution_params=merged.params, solution_ssr=merged.ssr,

@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .best_fit import SweepReference
 from .jsonable import jsonable
 from .outcomes import MEANINGS, Outcome
 
@@ -127,7 +128,7 @@ class SweepResult:
             for rank loss, ...); "" otherwise.
         maps: the 2-D slices; cases: example runs with their paths.
         chunks: {"total", "reused", "computed"}; cache: the cache folder; warnings: notes.
-        fingerprint: ``best_fit.scenario_fingerprint`` of the scenario swept, so that other
+        fingerprint: ``scenario.solutions_fingerprint`` of the scenario swept, so that other
             stages take the reference only from a sweep of the same problem ("" when unset).
     """
 
@@ -249,3 +250,27 @@ class SweepResult:
             "cases": [case.to_dict() for case in self.cases],
             "chunks": self.chunks, "cache": self.cache, "warnings": self.warnings,
         })
+
+
+def reference_from_json(payload: dict, names: tuple[str, ...]) -> SweepReference | None:
+    """The in-range reference in a sweep's ``to_dict()`` output, or None when it holds none.
+
+    Whether the sweep belongs to the same scenario is the caller's check (its fingerprint).
+    """
+    reference = payload.get("reference")
+    if reference is None:
+        return None
+    parameters = {entry["name"]: entry["range"] for entry in payload["parameters"]}
+    outside = [entry for entry in payload["solutions"] if not entry["inside_ranges"]]
+    return SweepReference(params=_values(reference["params"], names), ssr=float(reference["ssr"]),
+                          lower=_values({name: parameters[name][0] for name in names}, names),
+                          upper=_values({name: parameters[name][1] for name in names}, names),
+                          outside_params=np.array([_values(entry["params"], names)
+                                                   for entry in outside]).reshape(-1, len(names)),
+                          outside_ssr=_values([entry["ssr"] for entry in outside], None))
+
+
+def _values(mapping, names: tuple[str, ...] | None) -> np.ndarray:
+    """Floats (JSON null as NaN) from a {name: value} mapping in ``names`` order, or from a list."""
+    values = [mapping[name] for name in names] if names is not None else mapping
+    return np.array([np.nan if value is None else value for value in values], dtype=float)

@@ -16,9 +16,10 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
-from audit.best_fit import FROM_START, FROM_SWEEP, SweepReference, best_known_fit, scenario_fingerprint
+from audit.best_fit import FROM_START, FROM_SWEEP, SweepReference, best_known_fit
 from audit.cli import main
-from audit.scenario import load_scenario
+from audit.scenario import load_scenario, solutions_fingerprint
+from audit.sweep_result import reference_from_json
 
 SCENARIO = """\
     title = "sinusoid with a local optimum at the scenario's start"
@@ -89,7 +90,7 @@ def test_the_scenario_start_reaches_a_local_optimum_and_the_sweep_json_carries_t
     # Reference: scipy.optimize.least_squares from the scenario's start stops at a local optimum.
     assert local_ssr > 10 * optimum_ssr
     payload = json.loads((out / "sweep.json").read_text())
-    assert payload["fingerprint"] == scenario_fingerprint(load_scenario(folder))
+    assert payload["fingerprint"] == solutions_fingerprint(load_scenario(folder))
     # Reference: scipy.optimize.least_squares from a start near the optimum.
     assert values(payload["reference"]["params"]) == pytest.approx(optimum, rel=1e-6)
     assert payload["reference"]["ssr"] == pytest.approx(optimum_ssr, rel=1e-9)
@@ -98,9 +99,9 @@ def test_the_scenario_start_reaches_a_local_optimum_and_the_sweep_json_carries_t
 def test_best_known_fit_is_the_sweeps_reference_not_the_fit_from_the_start(swept):
     folder, out = swept
     scenario = load_scenario(folder)
-    reference = SweepReference.from_sweep_json(json.loads((out / "sweep.json").read_text()), scenario.names)
-    alone = best_known_fit(scenario.problem, scenario.start, scenario.solver)
-    known = best_known_fit(scenario.problem, scenario.start, scenario.solver, reference)
+    reference = reference_from_json(json.loads((out / "sweep.json").read_text()), scenario.names)
+    alone = best_known_fit(scenario.problem, scenario.start, **scenario.solver.fit_options())
+    known = best_known_fit(scenario.problem, scenario.start, **scenario.solver.fit_options(), reference=reference)
     _, local_ssr = scipy_fit(folder, [1.0, 1.0, 0.0])
     optimum, optimum_ssr = scipy_fit(folder, NEAR_OPTIMUM)
     # Reference: scipy.optimize.least_squares from the scenario's start, and from near the optimum.
@@ -123,7 +124,7 @@ def test_a_lower_ssr_outside_the_ranges_is_kept_with_its_parameters(swept):
     reference = SweepReference(params=local, ssr=local_ssr, lower=np.array([0.1, 0.2, -3.0]),
                                upper=np.array([5.0, 1.5, 3.0]), outside_params=optimum[None, :],
                                outside_ssr=np.array([optimum_ssr]))
-    known = best_known_fit(scenario.problem, scenario.start, scenario.solver, reference)
+    known = best_known_fit(scenario.problem, scenario.start, **scenario.solver.fit_options(), reference=reference)
     # Reference: scipy.optimize.least_squares from the scenario's start and from near the optimum.
     assert known.source == FROM_SWEEP and known.ssr == pytest.approx(local_ssr, rel=1e-9)
     assert known.lower_ssr_known and known.lower_params == pytest.approx(optimum, rel=1e-12)
@@ -140,7 +141,7 @@ def test_a_lower_fit_from_the_start_inside_the_ranges_replaces_a_coarse_sweeps_r
     reference = SweepReference(params=local, ssr=local_ssr, lower=np.array([0.1, 0.2, -3.0]),
                                upper=np.array([5.0, 4.0, 3.0]), outside_params=np.empty((0, 3)),
                                outside_ssr=np.empty(0))
-    known = best_known_fit(scenario.problem, np.array(NEAR_OPTIMUM), scenario.solver, reference)
+    known = best_known_fit(scenario.problem, np.array(NEAR_OPTIMUM), **scenario.solver.fit_options(), reference=reference)
     # Reference: scipy.optimize.least_squares from near the optimum.
     assert known.source == FROM_START and known.params == pytest.approx(optimum, rel=1e-6)
     assert known.ssr == pytest.approx(optimum_ssr, rel=1e-9)

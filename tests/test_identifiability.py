@@ -14,11 +14,13 @@ from scipy.optimize import brentq, least_squares
 from audit import Problem
 from audit.cli import main
 from audit.collinearity import collinearity_indices
-from audit.identifiability import analyse, best_fit, identify_scenario
+from audit.identifiability import analyse, identify_scenario
+from audit.best_fit import best_known_fit
 from audit.parallel import ParallelPlan
 from audit.scenario import load_scenario
 from audit.settings import IdentifiabilitySettings, SolverSettings
 from audit.strd import log_relative_error
+
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
 TIGHT = SolverSettings(tolerance=1e-12, max_iterations=1000)
@@ -338,3 +340,10 @@ def test_identify_command_flags_a_product_model_and_rejects_bad_points(write_sce
     assert "structurally non-identifiable" in shown
     assert main(["identify", str(folder), "--points", "3"]) == 2
     assert "--points 3" in capsys.readouterr().err
+
+
+def best_fit(problem: Problem, start, solver: SolverSettings) -> tuple[np.ndarray, str]:
+    """The fit the identifiability stage audits when no sweep ran: the best from ``start``."""
+    known = best_known_fit(problem, np.asarray(start, dtype=float), **solver.fit_options(), accept_lost_rank=True)
+    assert known is not None, "nothing from the start converged"
+    return known.params, known.outcome

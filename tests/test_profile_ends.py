@@ -9,8 +9,10 @@ from scipy import stats
 from scipy.optimize import brentq, least_squares
 
 from audit import Problem
-from audit.identifiability import analyse, best_fit
+from audit.identifiability import analyse
+from audit.best_fit import best_known_fit
 from audit.settings import IdentifiabilitySettings, SolverSettings
+
 
 #: Five significant digits are the requirement; the refined ends are checked one digit tighter.
 END_RTOL = 1e-6
@@ -153,3 +155,10 @@ def test_profile_ends_of_nist_problems_match_exact_profiles(nist, name):
     assert set(profiles.lower_status) == set(profiles.upper_status) == {"closed"}
     np.testing.assert_allclose(profiles.lower, exact[:, 0], rtol=END_RTOL)
     np.testing.assert_allclose(profiles.upper, exact[:, 1], rtol=END_RTOL)
+
+
+def best_fit(problem: Problem, start, solver: SolverSettings) -> tuple[np.ndarray, str]:
+    """The fit the identifiability stage audits when no sweep ran: the best from ``start``."""
+    known = best_known_fit(problem, np.asarray(start, dtype=float), **solver.fit_options(), accept_lost_rank=True)
+    assert known is not None, "nothing from the start converged"
+    return known.params, known.outcome

@@ -11,10 +11,11 @@ from rich.console import Console
 from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
-from ..best_fit import FROM_START, KnownFit, SweepReference, scenario_fingerprint
+from ..best_fit import FROM_START, KnownFit, SweepReference
 from ..errors import InputError
 from ..parallel import BACKENDS, ParallelPlan
-from ..scenario import Scenario, load_scenario
+from ..scenario import Scenario, load_scenario, solutions_fingerprint
+from ..sweep_result import reference_from_json
 
 #: Exit statuses shared by all commands.
 EXIT_OK, EXIT_FINDING, EXIT_BAD_INPUT = 0, 1, 2
@@ -149,12 +150,12 @@ def sweep_reference(scenario: Scenario, out_folder: str | None) -> SweepReferenc
         return None
     try:
         payload = json.loads(path.read_text())
-        if payload.get("fingerprint") != scenario_fingerprint(scenario):
+        if payload.get("fingerprint") != solutions_fingerprint(scenario):
             err.print(f"[yellow]note:[/] {escape(str(path))} is not used: it was written for other data, model, "
                       "parameter ranges or solver settings; run 'fitaudit sweep' again to audit its best fit",
                       soft_wrap=True)
             return None
-        return SweepReference.from_sweep_json(payload, scenario.names)
+        return reference_from_json(payload, scenario.names)
     except (OSError, ValueError, KeyError, TypeError, AttributeError) as error:
         err.print(f"[yellow]note:[/] {escape(str(path))} is not used: it cannot be read ({escape(str(error))})",
                   soft_wrap=True)

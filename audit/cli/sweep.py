@@ -2,14 +2,12 @@
 from __future__ import annotations
 
 import argparse
-import dataclasses
 import time
 from pathlib import Path
 
 import numpy as np
 from rich.table import Table
 
-from ..best_fit import scenario_fingerprint
 from ..figures.sweep import write_figures
 from ..starts import DESIGNS
 from ..sweep import SweepRequest, run_sweep
@@ -120,7 +118,6 @@ def run(args: argparse.Namespace) -> int:
 
         result = run_sweep(scenario, request, plan, folder, on_progress=advance)
     # The other stages audit this sweep's reference only while the problem stays the same.
-    result = dataclasses.replace(result, fingerprint=scenario_fingerprint(scenario))
     files = write_results(result, folder, "sweep", write_figures)
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})

@@ -23,7 +23,7 @@ import numpy as np
 
 from audit.engine import RefitSettings
 from audit.estimates import estimate
-from audit.identifiability import best_fit
+from audit.best_fit import best_known_fit
 from audit.problem import Problem
 from audit.profile_ends import refine_crossings
 from audit.profile_walk import CEILING_RISES, NOT_WALKED, walk_sides
@@ -85,7 +85,7 @@ def measure(name: str, problem: Problem, start: np.ndarray, points: int, repeat:
     solver = SolverSettings()
     walk = RefitSettings(step_factor=solver.step_factors[0], tolerance=solver.tolerance,
                          max_iterations=solver.max_iterations)
-    params, _ = best_fit(problem, start, solver)
+    params = best_known_fit(problem, start, **solver.fit_options(), accept_lost_rank=True).params
     estimates = estimate(problem, params)
     n = len(params)
     lower = np.full(n, np.nan) if lower is None else lower
