@@ -29,6 +29,10 @@ OVERFLOW_FACTOR = 10.0
 SSR_BLOWUP = 1e12
 #: Consecutive reversing, non-improving steps that make a run oscillating.
 OSCILLATION_WINDOW = 6
+#: Reversing steps that shrank below this fraction of their length over OSCILLATION_WINDOW
+#: iterations are closing in on a point (a damped zig-zag: Gauss-Newton's linear convergence on
+#: a problem with large residuals), not cycling: a cycle's steps keep their length.
+CLOSING_IN = 0.9
 #: Levenberg-Marquardt: trial steps per iteration before the iteration is given up, and the
 #: smallest ratio of actual to predicted decrease of the SSR for a step to be taken.
 TRIAL_STEPS = 12
@@ -104,6 +108,8 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         ssr_before=np.full((len(block), 2), np.inf),
         last_move=np.zeros((len(block), len(free))),
         reversals=np.zeros(len(block), dtype=np.int64),
+        shrinking=np.zeros(len(block), dtype=bool),
+        past_lengths=np.zeros((len(block), OSCILLATION_WINDOW)),
         change=np.full(len(block), np.nan),
         settled=np.zeros(len(block), dtype=bool),
         lost_rank=np.zeros(len(block), dtype=bool),
@@ -218,9 +224,11 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     Gauss-Newton step from where it stands is below the tolerance (it is stationary); or when
     that step is small (below the square root of the tolerance) and the SSR can no longer tell
     better from worse: every trial down to one below the tolerance was refused, or the step just
-    taken was within the SSR's rounding noise (a shrunken radius alone cannot fake convergence,
-    and noisy derivatives cannot keep a run jittering at its noise floor); or when its
-    Jacobian has lost rank and its steps have died out.
+    taken was within the SSR's rounding noise and no shorter than the one before, or part of a
+    zig-zag that no longer closes in (a shrunken radius alone cannot fake convergence, and noisy
+    derivatives cannot keep a run jittering at its noise floor; while the steps keep shrinking
+    the gradient is still above its noise and the run goes on gaining digits the SSR can no
+    longer show); or when its Jacobian has lost rank and its steps have died out.
     """
     state.norm_memory = np.maximum(state.norm_memory, system.column_norms)
     spectrum = Spectrum.of(system)
@@ -255,7 +263,7 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         gain = np.where(np.isfinite(gain) & np.isfinite(trial).all(axis=1), gain, -np.inf)
         # Below the rounding noise of the SSR the gain ratio is noise too: a step whose
         # predicted decrease is that small is taken unless it clearly raises the SSR.
-        noise = ROUNDING_NOISE * np.sqrt(state.ssr[rows]) * state.data_norm[rows]
+        noise = _ssr_noise(state.ssr[rows], state.data_norm[rows])
         unresolved = (predicted <= noise) & (trial_ssr <= state.ssr[rows] + noise)
         accepted = ((gain >= ACCEPTED_GAIN) & (trial_ssr < state.ssr[rows])) | unresolved
         length = alpha * subspectrum.length(damping)
@@ -272,14 +280,22 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         pending[rows[change[rows] < tol]] = False
     change[stationary] = full_change[stationary]
     state.change = change
+    _track_reversals(state, moves / state.floor[:, free])
     near_stationary = full_change < np.sqrt(tol)
     refused = (change < tol) & ~moved
-    state.settled = (stationary | (near_stationary & (refused | at_noise_floor))
+    # At the floor a zig-zag that no longer closes in is rounding, not a cycle: LM takes no step
+    # that clearly raises the SSR, so it cannot cycle above the floor.
+    at_rounding_floor = at_noise_floor & (~state.shrinking | _cycling(state))
+    state.settled = (stationary | (near_stationary & (refused | at_rounding_floor))
                      | ((change < tol) & system.rank_deficient))
     state.lost_rank = system.rank_deficient
     state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
     state.params, state.weighted, state.ssr = params, weighted, ssr
-    _track_reversals(state, moves / state.floor[:, free])
+
+
+def _ssr_noise(ssr: np.ndarray, data_norm: np.ndarray) -> np.ndarray:
+    """(A,) rounding noise of the SSR (see ROUNDING_NOISE): SSR changes below it mean nothing."""
+    return ROUNDING_NOISE * np.sqrt(ssr) * data_norm
 
 
 def _track_reversals(state: _Working, move: np.ndarray) -> None:
@@ -287,14 +303,26 @@ def _track_reversals(state: _Working, move: np.ndarray) -> None:
     before it (a ≈ a two steps back while a ≠ the last one).
 
     ``move`` (A, c) is the step in units fixed per run (not relative to the moving iterate),
-    so that steps from different iterates compare.
+    so that steps from different iterates compare. Sets ``shrinking`` where the step is shorter
+    than the one before, and keeps the lengths of the last OSCILLATION_WINDOW steps (newest
+    first) in ``past_lengths``, so that a zig-zag that shrinks (converging) can be told from a
+    cycle.
     """
-    dot = np.einsum("ac,ac->a", move, state.last_move)
-    sizes = np.linalg.norm(move, axis=1) * np.linalg.norm(state.last_move, axis=1)
-    reversing = dot < -0.5 * sizes
+    length, last_length = np.linalg.norm(move, axis=1), np.linalg.norm(state.last_move, axis=1)
+    reversing = np.einsum("ac,ac->a", move, state.last_move) < -0.5 * length * last_length
     cycling = np.max(np.abs(move + state.last_move), axis=1) <= 0.5 * np.max(np.abs(move), axis=1)
+    state.shrinking = length < last_length
     state.reversals = np.where(reversing & cycling, state.reversals + 1, 0)
+    state.past_lengths = np.column_stack([last_length, state.past_lengths[:, :-1]])
     state.last_move = move
+
+
+def _cycling(state: _Working) -> np.ndarray:
+    """(A,) True where the last OSCILLATION_WINDOW steps reversed one another and the last step
+    is at least CLOSING_IN times as long as the one OSCILLATION_WINDOW steps before it (a damped
+    zig-zag shrinks by more)."""
+    length = np.linalg.norm(state.last_move, axis=1)
+    return (state.reversals >= OSCILLATION_WINDOW) & (length >= CLOSING_IN * state.past_lengths[:, -1])
 
 
 def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
@@ -303,8 +331,11 @@ def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
     Non-finite or runaway parameters, an infinite or blown-up SSR, a NaN SSR past
     OVERFLOW_FACTOR typical magnitudes: diverged. A NaN SSR closer in: the model is undefined
     there (model error). A settled run whose Jacobian lost rank (Levenberg-Marquardt only;
-    Gauss-Newton stops at the loss): singular. Otherwise settled: converged. Reversing steps for OSCILLATION_WINDOW iterations
-    without the SSR falling below its value two steps back: oscillating.
+    Gauss-Newton stops at the loss): singular. Otherwise settled: converged. Reversing steps
+    for OSCILLATION_WINDOW iterations that have not shrunk over them (``_cycling``), without
+    the SSR falling below its value two steps back by more than its rounding noise:
+    oscillating (an SSR still falling by more than its noise, however little relative to its
+    size, and steps still shrinking are progress).
     """
     runaway = ~np.isfinite(state.params).all(axis=1) | (np.abs(state.params) > state.bound).any(axis=1)
     overflowed = ~np.isfinite(state.ssr) & (np.abs(state.params) > state.far).any(axis=1)
@@ -313,9 +344,9 @@ def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
     healthy = ~diverged & ~undefined
     singular = healthy & state.settled & state.lost_rank
     converged = healthy & state.settled & ~state.lost_rank
-    not_falling = state.ssr >= state.ssr_before[:, 1] * (1 - 1e-9)
-    oscillating = healthy & ~state.settled & not_falling & (state.change > 100 * tol) \
-        & (state.reversals >= OSCILLATION_WINDOW)
+    two_back = state.ssr_before[:, 1]
+    not_falling = state.ssr >= two_back - _ssr_noise(two_back, state.data_norm)
+    oscillating = healthy & ~state.settled & not_falling & (state.change > 100 * tol) & _cycling(state)
     codes = np.full(len(state), -1)
     for mask, code in ((diverged, Outcome.DIVERGED), (undefined, Outcome.MODEL_ERROR),
                        (singular, Outcome.SINGULAR), (converged, Outcome.CONVERGED),

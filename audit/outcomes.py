@@ -35,7 +35,8 @@ MEANINGS: dict[Outcome, str] = {
     Outcome.CONVERGED: "the largest scaled parameter change fell below the tolerance",
     Outcome.DIVERGED: ("parameters or the residual sum of squares became non-finite or ran past their blow-up bounds, "
                        "or the model overflowed once a parameter ran past ten times its range"),
-    Outcome.OSCILLATING: "successive steps kept reversing direction while the residual sum of squares did not fall",
+    Outcome.OSCILLATING: ("successive steps kept reversing direction without shrinking while the residual sum of "
+                          "squares did not fall by more than its rounding noise"),
     Outcome.STALLED: "the iteration limit was reached without converging, diverging or oscillating",
     Outcome.SINGULAR: "the Jacobian lost rank, so the step is not determined by the data",
     Outcome.MODEL_ERROR: ("the model raised, or returned non-finite or wrongly shaped values, at this run's "

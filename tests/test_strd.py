@@ -64,9 +64,9 @@ def test_default_settings_reach_the_certified_values(nist_dir):
     counts = report.counts()
     failures = [(check.name, start + 1, check.label(start, int(check.best[start])))
                 for check in report.checks for start in range(2) if not check.passed[start]]
-    # The issue's bar: all 22 from Start 2, at least 20 of 22 from Start 1.
+    # The issue's bar: all 22 from Start 2, at least 21 of 22 from Start 1.
     assert counts["passed_start2"] == 22, failures
-    assert counts["passed_start1"] >= 20, failures
+    assert counts["passed_start1"] >= 21, failures
     for check in report.checks:
         grades = check.grades
         for start in np.flatnonzero(check.passed):
@@ -77,6 +77,39 @@ def test_default_settings_reach_the_certified_values(nist_dir):
             assert (grades.extended_lre_ssr if limited else grades.lre_ssr)[at] >= THRESHOLDS["ssr"], check.name
             assert (grades.extended_lre_sd if limited else grades.lre_sd)[at] >= THRESHOLDS["sd"], check.name
 
+
+
+def test_levenberg_marquardt_refines_past_the_rounding_floor_of_the_ssr(nist_dir):
+    # NIST certified parameters (11 digits). The SSR is flat at its minimum (a relative change δ
+    # of the parameters moves it by about δ² relative), so comparing SSRs pins the parameters
+    # down to only about half of double precision's digits; the Gauss-Newton steps, built from
+    # the gradient, carry on past that floor. 9 digits in every parameter shows that every run
+    # went on past it instead of settling where its SSR stopped falling (6.3 digits on ENSO).
+    report = _report(str(nist_dir))
+    for check in report.checks:
+        for start in np.flatnonzero(check.passed):
+            assert check.grades.lre_params[start, int(check.best[start])] >= 9, (check.name, start + 1)
+
+
+def test_thurber_converges_from_both_starts(nist_dir):
+    """A cubic over a cubic in x on [-3, 2] (NIST StRD, higher difficulty): Gauss-Newton steps
+    zig-zag in to the minimum, whose SSR of about 5.6e3 falls by less than 1e-9 of itself over
+    two steps once the parameters have about 5 digits."""
+    path = nist_dir / "Thurber.dat"
+    if not path.is_file():
+        pytest.skip(f"Thurber.dat (NIST StRD) is not among the reference files in {nist_dir}")
+    reference = read_reference(path)
+    fitted = reference_model(reference)
+    settings = StrdSettings()
+    fit = fit_batch(fitted.problem, reference.starts, method="lm", tol=settings.tolerance,
+                    max_iter=settings.max_iterations)
+    grades = grade_runs(fitted, fit)
+    assert list(fit.outcome) == [Outcome.CONVERGED, Outcome.CONVERGED]
+    # Against NIST's certified values, with the bar this suite applies (strd_grade.THRESHOLDS):
+    # 6 digits in every parameter, 6 in the SSR, 4 in every standard deviation.
+    assert THRESHOLDS == {"params": 6.0, "ssr": 6.0, "sd": 4.0}
+    assert np.all(grades.lre_params >= 6) and np.all(grades.lre_ssr >= 6) and np.all(grades.lre_sd >= 4)
+    assert list(grades.verdict) == [Verdict.PASS, Verdict.PASS]
 
 def test_only_lanczos1_needs_extended_precision_and_it_passes_there(nist_dir):
     report = _report(str(nist_dir))
