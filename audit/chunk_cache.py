@@ -22,7 +22,7 @@ import numpy as np
 
 #: Raise when the layout of a chunk file changes: old caches are then ignored (changes to the
 #: computation are caught by ``code_digest``).
-CACHE_FORMAT = 2
+CACHE_FORMAT = 3
 #: Hex digits of the settings hash in the folder name.
 KEY_LENGTH = 20
 

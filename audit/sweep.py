@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import math
 import tempfile
+from collections import Counter
 from collections.abc import Callable, Iterator
 from contextlib import ExitStack
 from dataclasses import asdict, dataclass
@@ -29,7 +30,7 @@ import numpy as np
 
 from . import __version__
 from .chunk_cache import ChunkStore, cache_key, code_digest
-from .equivalent_solutions import Equivalence, find_equivalent
+from .equivalent_solutions import ALIAS, Equivalence, SameCurve, find_equivalent
 from .errors import InputError
 from .parallel import ParallelPlan, map_chunks
 from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
@@ -178,8 +179,9 @@ class _Sweep:
         merged, mappings = self._merge(catalogues)
         best_unit = (np.clip(self.space.to_unit(merged.params[0]), 0, 1) if len(merged)
                      else np.full(self.space.n_params, 0.5))
+        # This pass knows the best fit, so every converged run's end point meets the curve test.
         tally = DesignTally(len(request.methods), len(request.step_factors), request.max_iterations, len(merged),
-                            best_unit)
+                            best_unit, SameCurve(self.problem, merged.params[0]) if len(merged) else None)
         for i, (first, stop) in enumerate(design_spans):
             tally.add(design_store.load(i), mappings[i], self.design.unit(first, stop))
         case_shape = (len(request.methods), len(request.step_factors), len(FAILURE_KINDS))
@@ -267,7 +269,7 @@ class _Sweep:
         solution_inside = self.space.contains(merged.params)
         symmetric_inside = equivalence.same_curve & solution_inside
         solution_shares = tally.solution_counts / starts
-        curve_shares = shares[..., BEST] + solution_shares[..., equivalence.same_curve].sum(axis=-1)
+        curve_shares = tally.curve_counts / starts
         advice = "" if recommended is not None else next_step(self.problem, self.scenario.start, tally.counts,
                                                                int(np.count_nonzero(~solution_inside)))
         return SweepResult(
@@ -277,17 +279,19 @@ class _Sweep:
             iterations_median=median, iterations_p90=p90, solution_params=merged.params, solution_ssr=merged.ssr,
             solution_shares=solution_shares, solution_level_with_best=level,
             solution_inside=solution_inside, solution_same_curve=equivalence.same_curve,
-            solution_exchange=equivalence.exchange, curve_shares=curve_shares, start=self.scenario.start, start_distance=start_distance,
+            solution_equivalence=equivalence.kind, solution_relation=equivalence.relation, curve_shares=curve_shares,
+            start=self.scenario.start, start_distance=start_distance,
             region_level=REGION_LEVEL, region_min_starts=REGION_MIN_STARTS, region_radius=radius,
             region_lower=lower, region_upper=upper, region_starts=inside, region_share=share_inside,
             start_inside=inside_parameter.all(axis=-1), start_inside_parameter=inside_parameter,
             recommended=recommended, recommendation_reason=reason, next_step=advice, maps=maps, cases=cases,
             chunks=dict(self.counters), cache=str(self.cache),
-            warnings=self._warnings(merged, design_best, level & ~symmetric_inside, solution_inside, starts)
-            + _symmetry_notes(equivalence, symmetric_inside, solution_shares, recommended, request))
+            warnings=self._warnings(merged, design_best, level & ~symmetric_inside, solution_inside, equivalence,
+                                   starts)
+            + _symmetry_notes(equivalence, symmetric_inside, curve_shares, recommended, request))
 
     def _warnings(self, merged: Catalogue, design_best: Catalogue, level: np.ndarray, inside: np.ndarray,
-                  starts: int) -> list[str]:
+                  equivalence: Equivalence, starts: int) -> list[str]:
         request, notes = self.request, []
         if request.design == "grid" and starts != request.points:
             notes.append(f"a full grid of {self.design.per_axis} points per axis has {starts} starts "
@@ -303,12 +307,18 @@ class _Sweep:
                 self.tolerance.ssr_relative * abs(design_best.ssr[0]) + self.tolerance.ssr_floor):
             notes.append("a basin map found a lower SSR than any design start; the maps are centred on the "
                          "design's best, so rerun with more design points")
-        outside_lower = ~inside & (merged.ssr < merged.ssr[0]) if len(merged) else inside
-        if np.any(outside_lower | (level & ~inside)):
-            notes.append(f"{int(np.sum(outside_lower | (level & ~inside)))} solution(s) outside the searched ranges "
-                         f"reach the best SSR or a lower one ({int(np.sum(outside_lower))} lower; see the solutions "
-                         "table): widen a range if they are physical, else they are aliases or mirror images of "
-                         "the reference")
+        # Lower by more than the clustering's SSR tolerance: aliases sit at the best SSR to rounding.
+        outside_lower = ~inside & (merged.ssr < merged.ssr[0] - (self.tolerance.ssr_relative * abs(merged.ssr[0])
+                                                               + self.tolerance.ssr_floor)) if len(merged) else inside
+        outside = outside_lower | (level & ~inside)
+        if np.any(outside):
+            kinds = Counter(equivalence.kind[s] for s in np.flatnonzero(outside & equivalence.same_curve))
+            curve = (f"; {sum(kinds.values())} of them give the best fit's curve ("
+                     + ", ".join(f"{count} {kind}" for kind, count in sorted(kinds.items())) + "), not separate fits"
+                     if kinds else "")
+            notes.append(f"{int(np.sum(outside))} solution(s) outside the searched ranges reach the best SSR or a "
+                         f"lower one ({int(np.sum(outside_lower))} lower; see the solutions table){curve}: widen a "
+                         "range only if values there are physical")
         if np.any(level & inside):
             notes.append(f"{int(np.sum(level & inside))} other solution(s) inside the ranges have the best SSR with "
                          "different parameters: the data may not determine the parameters (see the identifiability "
@@ -316,21 +326,26 @@ class _Sweep:
         return notes
 
 
-def _symmetry_notes(equivalence: Equivalence, symmetric_inside: np.ndarray, solution_shares: np.ndarray,
+def _symmetry_notes(equivalence: Equivalence, symmetric_inside: np.ndarray, curve_shares: np.ndarray,
                     recommended: tuple[int, int] | None, request: SweepRequest) -> list[str]:
     """One note per solution inside the ranges that repeats the best fit's curve with other
     parameters (those outside are noted with the other outside solutions), and the share of
     starts reaching the curve with them counted."""
     notes = []
     for s in np.flatnonzero(symmetric_inside):
-        how = f"with {equivalence.exchange[s]}" if equivalence.exchange[s] else "with other parameter values"
-        notes.append(f"solution {s + 1} gives the best fit's curve {how}: a symmetry of the model, not a "
-                     "separate fit; narrow the ranges so that only one of the two lies inside them")
+        how = f" ({equivalence.relation[s]})" if equivalence.relation[s] else ""
+        if equivalence.kind[s] == ALIAS:
+            notes.append(f"solution {s + 1} gives the best fit's values at the sample points{how} but another curve "
+                         "between them: an alias of the sampling, not a separate fit; narrow the ranges so that "
+                         "only one of the two lies inside them, or sample more densely")
+        else:
+            notes.append(f"solution {s + 1} gives the best fit's curve with other parameters{how}: a symmetry of "
+                         f"the model ({equivalence.kind[s]}), not a separate fit; narrow the ranges so that only "
+                         "one of the two lies inside them")
     if len(notes) and recommended is not None:
         m, f = recommended
-        together = solution_shares[m, f, 0] + solution_shares[m, f, symmetric_inside].sum()
-        notes.append(f"counting the equivalent solution(s), {together:.1%} of the starts reach the best fit's curve "
-                     f"with {request.methods[m]} and step factor {request.step_factors[f]:g}")
+        notes.append(f"counting the equivalent solution(s), {curve_shares[m, f]:.1%} of the starts reach the best "
+                     f"fit's curve with {request.methods[m]} and step factor {request.step_factors[f]:g}")
     return notes
 
 

@@ -9,6 +9,9 @@ which is exactly what the chunk cache stores:
 - ``label`` (M, F, c) int8: the row of the chunk's own solution catalogue that each converged
   run reached (``solutions.NO_SOLUTION`` when not converged, ``UNCATALOGUED`` beyond it);
 - ``solution_params`` (k, n), ``solution_ssr`` (k,), ``solution_count`` (k,): that catalogue;
+- ``converged_params`` (r, n): the end point of every converged run, in the order of the runs
+  in (M, F, c), so that once the best fit is known every one of them can be tested for its
+  curve, including runs whose solution is beyond the catalogue's limit;
 - ``case_start`` (M, F, K, CASES) int64: design indices of a few runs of each failure kind
   (−1 where fewer), so that some of them can later be rerun with their whole history;
 - ``span`` (2,): first and stop, to check a stored chunk against the plan.
@@ -80,6 +83,7 @@ class ChunkWork:
             "solution_params": catalogue.params,
             "solution_ssr": catalogue.ssr,
             "solution_count": catalogue.count,
+            "converged_params": ends[converged],
             "case_start": _spread_cases(outcome, first),
             "span": np.array([first, stop], dtype=np.int64),
         }

@@ -107,11 +107,15 @@ class SweepResult:
             (the best is the lowest SSR among those; solutions outside follow them);
             solution_same_curve: (S,) True where a solution gives the best fit's curve with
             other parameters, a distinct minimum (a symmetry of the model, see
-            ``equivalent_solutions``); solution_exchange: (S,) how its parameters map onto the
-            best fit's (e.g. "a↔c, b↔d"), "" where no exchange or sign change explains it.
-        curve_shares: (M, F) share of starts reaching the best fit's curve: the best solution
-            or one marked same-curve (an alias of a frequency, an exchange of terms, a mirror
-            image), inside the ranges or not.
+            ``equivalent_solutions``); solution_equivalence: (S,) for those, what kind:
+            "alias at the sample points" (the curves differ between the samples), or the
+            exchange, mirror or period shift that maps the parameters ("" elsewhere);
+            solution_relation: (S,) that mapping, e.g. "a↔c, b↔d", "w → −w",
+            "phase + 1×6.28319" ("" where none explains the parameters).
+        curve_shares: (M, F) share of starts reaching the best fit's curve: the best solution,
+            or a converged end point whose curve passes the same-curve test (an alias, an
+            exchange of terms, a mirror image, a period shift), inside the ranges or not,
+            catalogued or beyond the catalogue's limit.
         start: (n,) the scenario's own starting values; start_distance: its distance from the
             best fit in unit-cube coordinates (largest over the parameters).
         region_radius: (M, F) half-width, in unit-cube coordinates, of the largest cube around
@@ -153,7 +157,8 @@ class SweepResult:
     solution_level_with_best: np.ndarray
     solution_inside: np.ndarray
     solution_same_curve: np.ndarray
-    solution_exchange: list[str]
+    solution_equivalence: list[str]
+    solution_relation: list[str]
     curve_shares: np.ndarray
     start: np.ndarray
     start_distance: float
@@ -231,11 +236,12 @@ class SweepResult:
             "counts": self.counts, "shares": self.shares,
             "iterations_median": self.iterations_median, "iterations_p90": self.iterations_p90,
             "solutions": [{"params": dict(zip(self.names, params)), "ssr": ssr, "level_with_best": level,
-                           "inside_ranges": inside, "same_curve_as_best": same, "exchange": exchange,
-                           "shares": self.solution_shares[..., s]}
-                          for s, (params, ssr, level, inside, same, exchange) in enumerate(zip(
+                           "inside_ranges": inside, "same_curve_as_best": same, "equivalence": kind,
+                           "relation_to_best": relation, "shares": self.solution_shares[..., s]}
+                          for s, (params, ssr, level, inside, same, kind, relation) in enumerate(zip(
                               self.solution_params, self.solution_ssr, self.solution_level_with_best,
-                              self.solution_inside, self.solution_same_curve, self.solution_exchange))],
+                              self.solution_inside, self.solution_same_curve, self.solution_equivalence,
+                              self.solution_relation))],
             "best": {"params": dict(zip(self.names, self.best_params)), "ssr": self.best_ssr},
             "fingerprint": self.fingerprint,
             "reference": {"params": dict(zip(self.names, self.best_params)), "ssr": self.best_ssr}

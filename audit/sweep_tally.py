@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .equivalent_solutions import SameCurve
+from .outcomes import Outcome
 from .recommend import DISTANCE_BINS, start_distances
 from .solutions import NO_SOLUTION, UNCATALOGUED
 from .sweep_chunk import CASES
@@ -64,6 +66,9 @@ class DesignTally:
         counts: (M, F, K) runs per category.
         iteration_histogram: (M, F, K, max_iterations + 1) runs per category and iteration count.
         solution_counts: (M, F, S) runs per merged solution.
+        curve_counts: (M, F) runs that reached the best fit's curve: the best solution, or any
+            converged end point that passes the curve test (an alias, a symmetry), whether its
+            solution is catalogued or beyond the limit.
         distance_total: (DISTANCE_BINS,) starts per distance from the best fit.
         distance_best: (M, F, DISTANCE_BINS) of those reaching the best solution.
         distance_farthest: (DISTANCE_BINS,) largest distance seen in each bin (−inf if none).
@@ -71,12 +76,15 @@ class DesignTally:
         cases: the example runs offered by the chunks (``CaseCandidates``).
     """
 
-    def __init__(self, methods: int, factors: int, max_iterations: int, solutions: int, centre: np.ndarray) -> None:
+    def __init__(self, methods: int, factors: int, max_iterations: int, solutions: int, centre: np.ndarray,
+                 same_curve: SameCurve | None = None) -> None:
         kinds = len(CATEGORIES)
         self.centre = centre
+        self.same_curve = same_curve
         self.counts = np.zeros((methods, factors, kinds), dtype=np.int64)
         self.iteration_histogram = np.zeros((methods, factors, kinds, max_iterations + 1), dtype=np.int64)
         self.solution_counts = np.zeros((methods, factors, max(solutions, 0)), dtype=np.int64)
+        self.curve_counts = np.zeros((methods, factors), dtype=np.int64)
         self.distance_total = np.zeros(DISTANCE_BINS, dtype=np.int64)
         self.distance_best = np.zeros((methods, factors, DISTANCE_BINS), dtype=np.int64)
         self.distance_farthest = np.full(DISTANCE_BINS, -np.inf)
@@ -104,6 +112,10 @@ class DesignTally:
             index = (np.broadcast_to(cell, solution.shape) * solutions + solution)[reached]
             self.solution_counts += np.bincount(index.astype(np.int64), minlength=methods * factors * solutions
                                                 ).reshape(self.solution_counts.shape)
+        on_curve = category == BEST
+        if self.same_curve is not None:
+            on_curve[chunk["outcome"] == Outcome.CONVERGED] |= self.same_curve(chunk["converged_params"])
+        self.curve_counts += on_curve.sum(axis=-1)
         distance, bins = start_distances(unit, self.centre)
         self.distance_total += np.bincount(bins, minlength=DISTANCE_BINS)
         np.maximum.at(self.distance_farthest, bins, distance)

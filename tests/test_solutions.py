@@ -5,7 +5,7 @@ import numpy as np
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import least_squares
 
-from audit.equivalent_solutions import find_equivalent
+from audit.equivalent_solutions import EXCHANGE, MIRROR, find_equivalent
 from audit.problem import Problem
 from audit.recommend import choose_step_factor
 from audit.solutions import UNCATALOGUED, SolutionTolerance, cluster, merge_catalogues
@@ -96,7 +96,7 @@ def test_exchanged_terms_are_the_same_curve_and_named():
     np.testing.assert_allclose(fits[1], fits[0][[2, 3, 0, 1]], rtol=1e-6)
     found = find_equivalent(problem, np.array(fits), np.array([False, True]), 1e-4, np.full(4, 1e-6))
     assert list(found.same_curve) == [False, True]
-    assert found.exchange == ["", "a↔c, b↔d"]
+    assert found.relation == ["", "a↔c, b↔d"] and found.kind == ["", EXCHANGE]
 
 
 def test_exchanged_terms_of_exact_data_are_the_same_curve():
@@ -107,7 +107,7 @@ def test_exchanged_terms_of_exact_data_are_the_same_curve():
                       5.0 * np.exp(-1.3 * x) + 2.0 * np.exp(-0.2 * x), ("a", "b", "c", "d"))
     params = np.array([[5.0, 1.3, 2.0, 0.2], [2.0, 0.2, 5.0, 1.3 * (1 + 1e-12)]])
     found = find_equivalent(problem, params, np.array([False, True]), 1e-4, np.full(4, 1e-6))
-    assert list(found.same_curve) == [False, True] and found.exchange[1] == "a↔c, b↔d"
+    assert list(found.same_curve) == [False, True] and found.relation[1] == "a↔c, b↔d"
 
 
 def test_mirrored_width_is_named_as_a_sign_change():
@@ -118,7 +118,8 @@ def test_mirrored_width_is_named_as_a_sign_change():
     best = least_squares(lambda p: problem.residuals(p[None, :])[0], [1.5, 1.0], method="lm", xtol=1e-14).x
     params = np.array([best, best * [1, -1]])
     found = find_equivalent(problem, params, np.array([False, True]), 1e-4, np.full(2, 1e-6))
-    assert list(found.same_curve) == [False, True] and found.exchange[1] == "w → −w"
+    assert list(found.same_curve) == [False, True] and found.relation[1] == "w → −w"
+    assert found.kind[1] == MIRROR
 
 
 def test_a_structurally_undetermined_pair_is_not_called_a_symmetry():
@@ -140,4 +141,4 @@ def test_a_different_curve_with_a_level_ssr_is_not_the_same_curve():
                          xtol=1e-14).x
     other = best * [1.0, 1.0, 1.0, 1.01]
     found = find_equivalent(problem, np.array([best, other]), np.array([False, True]), 1e-4, np.full(4, 1e-6))
-    assert not found.same_curve.any() and found.exchange == ["", ""]
+    assert not found.same_curve.any() and found.relation == ["", ""]

@@ -113,7 +113,7 @@ def test_exchanged_terms_of_two_decays_are_one_curve_counted_together(write_scen
     np.testing.assert_allclose(result.solution_params[one], reference, rtol=1e-5)
     np.testing.assert_allclose(result.solution_params[other], reference[[2, 3, 0, 1]], rtol=1e-5)
     assert {one, other} == {0, 1} and list(result.solution_same_curve[:2]) == [False, True]
-    assert result.solution_exchange[1] == "a↔c, b↔d"
+    assert result.solution_relation[1] == "a↔c, b↔d" and result.solution_equivalence[1] == "exchange"
     assert not any("may not determine" in note for note in result.warnings)
     together = result.solution_shares[0, 0, 0] + result.solution_shares[0, 0, 1]
     assert any(f"{together:.1%} of the starts reach the best fit's curve" in note for note in result.warnings)

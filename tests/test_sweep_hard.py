@@ -179,10 +179,10 @@ def test_aliases_of_the_frequency_do_not_replace_the_in_range_optimum(write_scen
                              and abs(sign * a2 * np.exp(1j * sign * p2) - amp * np.exp(1j * phase)) < 1e-4)
         assert any(explained), result.solution_params[row]
         assert result.solution_ssr[row] == pytest.approx(result.best_ssr, rel=1e-6)
-    # Runs reaching an alias reach the best fit's curve: counted with the reference.
+    # Runs reaching a catalogued alias reach the best fit's curve: counted with the reference (the
+    # runs reaching aliases beyond the catalogue too: tests/test_sweep_aliases.py counts them all).
     together = result.shares[..., BEST] + result.solution_shares[..., aliases].sum(axis=-1)
-    np.testing.assert_allclose(result.curve_shares, together, rtol=1e-12)
-    assert np.all(result.curve_shares >= result.shares[..., BEST]) and np.any(result.curve_shares > result.shares[..., BEST])
+    assert np.all(result.curve_shares >= together - 1e-12) and np.any(together > result.shares[..., BEST])
 
 
 # ---------------------------------------------------------------- recommendation and safe region

@@ -132,7 +132,7 @@ def show(result: SweepResult, files: list[Path]) -> None:
     out.print(f"[bold]{result.points} starts[/] ({result.design} design) × {len(result.step_factors)} step factor(s)"
               f"; {chunks['computed']} chunk(s) computed, {chunks['reused']} taken from the cache")
     table = Table(title="how the runs ended, per step factor (shares of the starts)", title_justify="left")
-    curve = bool(np.any(result.solution_same_curve))
+    curve = bool(np.any(result.solution_same_curve) or np.any(result.curve_shares > result.shares[..., BEST]))
     for heading in ("method", "step factor", *[label.replace("_", " ") for label in CATEGORIES],
                     *(("best curve",) if curve else ()), "iterations (median / 90%)", "safe radius"):
         table.add_column(heading, justify="left" if heading == "method" else "right")
@@ -160,13 +160,14 @@ def _show_solutions(result: SweepResult) -> None:
         out.print("[red]no run converged[/]")
         return
     table = Table(title=f"distinct solutions ({len(result.solution_ssr)})", title_justify="left")
-    for heading in ("#", "SSR", *result.names, "largest share"):
-        table.add_column(heading, justify="right")
     shown = min(len(result.solution_ssr), 8)
+    relations = [_solution_kind(result, s) for s in range(shown)]
+    for heading in ("#", "SSR", *result.names, "largest share", *(("relation to the best",) if any(relations) else ())):
+        table.add_column(heading, justify="left" if heading == "relation to the best" else "right")
     for s in range(shown):
-        label = ("best" if s == 0 else str(s + 1)) + _solution_kind(result, s)
-        table.add_row(label, number(result.solution_ssr[s], 8), *(number(v, 8) for v in result.solution_params[s]),
-                      f"{np.max(result.solution_shares[..., s]):.1%}")
+        table.add_row("best" if s == 0 else str(s + 1), number(result.solution_ssr[s], 8),
+                      *(number(v, 8) for v in result.solution_params[s]),
+                      f"{np.max(result.solution_shares[..., s]):.1%}", *((relations[s],) if any(relations) else ()))
     out.print(table)
     if shown < len(result.solution_ssr):
         outside = int(np.count_nonzero(~result.solution_inside[shown:]))
@@ -175,12 +176,15 @@ def _show_solutions(result: SweepResult) -> None:
 
 
 def _solution_kind(result: SweepResult, s: int) -> str:
-    """How a listed solution relates to the reference, for its row label."""
+    """How a listed solution relates to the reference: its kind of equivalence and mapping, and
+    whether it lies outside the ranges ("" for an ordinary solution inside them)."""
+    parts = []
     if result.solution_same_curve[s]:
-        relation = f": {result.solution_exchange[s]}" if result.solution_exchange[s] else ""
-        return (f" (same curve{relation})" if result.solution_inside[s]
-                else f" (alias or mirror image, outside ranges{relation})")
-    return "" if result.solution_inside[s] else " (outside ranges)"
+        relation = f" ({result.solution_relation[s]})" if result.solution_relation[s] else ""
+        parts.append(f"same curve: {result.solution_equivalence[s]}{relation}")
+    if not result.solution_inside[s]:
+        parts.append("outside ranges")
+    return "; ".join(parts)
 
 
 def _show_recommendation(result: SweepResult) -> None:
