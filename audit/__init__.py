@@ -1,8 +1,8 @@
 """fitaudit: a robustness audit for nonlinear least-squares fits (import name ``audit``)."""
-from .engine import BatchFit, fit_batch
+from .engine.batch import BatchFit, fit_batch
 from .errors import InputError
-from .outcomes import Outcome
-from .problem import Problem
+from .engine.outcomes import Outcome
+from .engine.problem import Problem
 
 __version__ = "0.1.0"
 

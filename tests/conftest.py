@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from audit.strd import ReferenceProblem, read_reference
+from audit.validation.reference import ReferenceProblem, read_reference
 
 PROJECT_ROOT = Path(__file__).resolve().parents[1]
 #: Environment variable that points at a folder of NIST StRD nonlinear regression .dat files.

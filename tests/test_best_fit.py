@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
-from audit.best_fit import FROM_START, FROM_SWEEP, SweepReference, best_known_fit
+from audit.engine.best_fit import FROM_START, FROM_SWEEP, SweepReference, best_known_fit
 from audit.cli import main
-from audit.scenario import load_scenario, solutions_fingerprint
-from audit.sweep_result import reference_from_json
+from audit.inputs.scenario import load_scenario, solutions_fingerprint
+from audit.sweep.result import reference_from_json
 
 SCENARIO = """\
     title = "sinusoid with a local optimum at the scenario's start"

@@ -12,18 +12,18 @@ import pytest
 from scipy import stats
 from scipy.optimize import least_squares
 
-from audit.bootstrap import bootstrap_scenario, run_bootstrap
-from audit.engine import RefitSettings
+from audit.uncertainty.bootstrap import bootstrap_scenario, run_bootstrap
+from audit.engine.batch import RefitSettings
 from audit.cli import main
-from audit.engine import fit_batch
+from audit.engine.batch import fit_batch
 from audit.figures.bootstrap import write_figures
-from audit.intervals import bca_interval, jackknife_acceleration, percentile_interval
-from audit.outcomes import Outcome
-from audit.parallel import ParallelPlan
-from audit.problem import Problem
-from audit.replicates import FATES, classify, same_point
-from audit.resampling import PairsScheme, WildScheme, leave_one_out, leverages
-from audit.scenario import load_scenario
+from audit.uncertainty.intervals import bca_interval, jackknife_acceleration, percentile_interval
+from audit.engine.outcomes import Outcome
+from audit.parallel.plan import ParallelPlan
+from audit.engine.problem import Problem
+from audit.uncertainty.replicates import FATES, classify, same_point
+from audit.uncertainty.resampling import PairsScheme, WildScheme, leave_one_out, leverages
+from audit.inputs.scenario import load_scenario
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
 

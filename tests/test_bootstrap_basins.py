@@ -10,9 +10,9 @@ import pytest
 from scipy import stats
 from scipy.optimize import least_squares
 
-from audit.bootstrap import chunk_generator, chunk_size, run_bootstrap
-from audit.problem import Problem
-from audit.resampling import build_scheme
+from audit.uncertainty.bootstrap import chunk_generator, chunk_size, run_bootstrap
+from audit.engine.problem import Problem
+from audit.uncertainty.resampling import build_scheme
 
 SAMPLES = 2000
 SEED = 1

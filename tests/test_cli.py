@@ -10,7 +10,7 @@ import pytest
 from scipy.optimize import least_squares
 
 from audit.cli import main
-from audit.scenario import load_scenario
+from audit.inputs.scenario import load_scenario
 
 BUNDLED = str(Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling")
 

@@ -21,11 +21,11 @@ from scipy.stats import binomtest
 
 from audit import InputError, Outcome, Problem
 from audit.cli import main
-from audit.derivative_points import check_points, sample_points
-from audit.derivatives import audit_derivatives, compare_derivatives
-from audit.estimates import estimate
+from audit.derivatives.points import check_points, sample_points
+from audit.derivatives.check import audit_derivatives, compare_derivatives
+from audit.engine.estimates import estimate
 from audit.figures.derivatives import write_figures
-from audit.scenario import Parameter, load_scenario
+from audit.inputs.scenario import Parameter, load_scenario
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
 NIST_FILES = ("BoxBOD Chwirut1 Chwirut2 DanWood ENSO Eckerle4 Gauss1 Gauss2 Kirby2 Lanczos1 Lanczos3 MGH09 "

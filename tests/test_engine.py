@@ -9,10 +9,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import least_squares
 
-from audit import InputError, Outcome, Problem, engine, fit_batch
-from audit.estimates import estimate
-from audit.scenario import load_scenario
-from audit.strd import log_relative_error
+from audit import InputError, Outcome, Problem, fit_batch
+from audit.engine import batch as engine
+from audit.engine.estimates import estimate
+from audit.inputs.scenario import load_scenario
+from audit.validation.reference import log_relative_error
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
 

@@ -9,13 +9,13 @@ import numpy as np
 import pytest
 
 from audit.cli import main
-from audit.engine import fit_batch
+from audit.engine.batch import fit_batch
 from audit.errors import InputError
-from audit.formula import check_formula, compile_formula
-from audit.formula_syntax import FUNCTIONS
-from audit.parallel import ParallelPlan, map_chunks
-from audit.scenario import load_scenario
-from audit.strd import log_relative_error, nist_formula
+from audit.inputs.formula import check_formula, compile_formula
+from audit.inputs.formula_syntax import FUNCTIONS
+from audit.parallel.plan import ParallelPlan, map_chunks
+from audit.inputs.scenario import load_scenario
+from audit.validation.reference import log_relative_error, nist_formula
 
 from conftest import nist_folder
 

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 from audit import InputError
-from audit.scenario import load_scenario
+from audit.inputs.scenario import load_scenario
 
 MODEL = """
 import numpy as np

@@ -5,10 +5,10 @@ import numpy as np
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import least_squares
 
-from audit.equivalent_solutions import EXCHANGE, MIRROR, find_equivalent
-from audit.problem import Problem
-from audit.recommend import choose_step_factor
-from audit.solutions import UNCATALOGUED, SolutionTolerance, cluster, merge_catalogues
+from audit.sweep.equivalent_solutions import EXCHANGE, MIRROR, find_equivalent
+from audit.engine.problem import Problem
+from audit.sweep.recommend import choose_step_factor
+from audit.sweep.solutions import UNCATALOGUED, SolutionTolerance, cluster, merge_catalogues
 
 TOLERANCE = SolutionTolerance(parameter_relative=1e-4, floor=np.array([1e-3, 1e-3]), ssr_relative=1e-6,
                               ssr_floor=1e-20)

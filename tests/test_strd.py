@@ -13,13 +13,13 @@ import numpy as np
 import pytest
 
 from audit.cli import main
-from audit.engine import fit_batch
+from audit.engine.batch import fit_batch
 from audit.errors import InputError
-from audit.outcomes import Outcome
-from audit.strd import log_relative_error, nist_formula, read_reference
-from audit.strd_check import StrdSettings, check_folder
-from audit.strd_extended import refine_in_extended_precision
-from audit.strd_grade import THRESHOLDS, Verdict, grade_runs, reference_model
+from audit.engine.outcomes import Outcome
+from audit.validation.reference import log_relative_error, nist_formula, read_reference
+from audit.validation.check import StrdSettings, check_folder
+from audit.validation.extended_precision import refine_in_extended_precision
+from audit.validation.grade import THRESHOLDS, Verdict, grade_runs, reference_model
 
 
 @lru_cache(maxsize=None)

@@ -14,12 +14,12 @@ from scipy.optimize import least_squares
 
 from audit.cli import main
 from audit.figures.sweep import write_figures
-from audit.parallel import ParallelPlan
-from audit.recommend import histogram_percentile
-from audit.scenario import load_scenario
-from audit.starts import make_design, search_space
-from audit.sweep import SweepRequest, run_sweep
-from audit.sweep_result import CATEGORIES
+from audit.parallel.plan import ParallelPlan
+from audit.sweep.recommend import histogram_percentile
+from audit.inputs.scenario import load_scenario
+from audit.sweep.starts import make_design, search_space
+from audit.sweep.run import SweepRequest, run_sweep
+from audit.sweep.result import CATEGORIES
 
 import twin_optima as twin
 

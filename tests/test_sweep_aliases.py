@@ -11,16 +11,16 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
-import audit.sweep
-from audit.engine import fit_batch
-from audit.equivalent_solutions import ALIAS, MIRROR, PERIOD_SHIFT, find_equivalent
-from audit.outcomes import Outcome
-from audit.parallel import ParallelPlan
-from audit.problem import Problem
-from audit.scenario import load_scenario
-from audit.starts import make_design, search_space
-from audit.sweep import SweepRequest, run_sweep
-from audit.sweep_result import BEST
+import audit.sweep.run
+from audit.engine.batch import fit_batch
+from audit.sweep.equivalent_solutions import ALIAS, MIRROR, PERIOD_SHIFT, find_equivalent
+from audit.engine.outcomes import Outcome
+from audit.parallel.plan import ParallelPlan
+from audit.engine.problem import Problem
+from audit.inputs.scenario import load_scenario
+from audit.sweep.starts import make_design, search_space
+from audit.sweep.run import SweepRequest, run_sweep
+from audit.sweep.result import BEST
 
 SINE_DT = 0.25
 SINE_T = np.arange(40) * SINE_DT
@@ -107,7 +107,7 @@ def test_every_run_reaching_an_alias_counts_toward_the_best_curve(sine_folder, t
     assert np.all(result.curve_shares > catalogued + 0.01)
     # Cut into smaller chunks (other local catalogues, other solutions beyond the cap), the count
     # is the same: every run's end point is tested, not its catalogue entry.
-    monkeypatch.setattr(audit.sweep, "CHUNK_RUNS", 1024)
+    monkeypatch.setattr(audit.sweep.run, "CHUNK_RUNS", 1024)
     smaller = run_sweep(scenario, SweepRequest.from_scenario(scenario), ParallelPlan(jobs=2), tmp_path / "two")
     assert smaller.chunks["total"] > result.chunks["total"]
     np.testing.assert_array_equal(smaller.curve_shares, result.curve_shares)

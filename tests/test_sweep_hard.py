@@ -15,10 +15,10 @@ import pytest
 from scipy.optimize import least_squares
 
 from audit.cli import main
-from audit.parallel import ParallelPlan
-from audit.scenario import load_scenario
-from audit.sweep import SweepRequest, run_sweep
-from audit.sweep_result import BEST
+from audit.parallel.plan import ParallelPlan
+from audit.inputs.scenario import load_scenario
+from audit.sweep.run import SweepRequest, run_sweep
+from audit.sweep.result import BEST
 
 
 def sweep(folder, **request):
@@ -252,7 +252,7 @@ def test_the_recommended_step_factor_comes_with_the_region_it_is_safe_from(write
     np.testing.assert_allclose(result.best_params, optimum, rtol=1e-6)
     # Fates of every design start from the textbook update; distances in unit-cube coordinates
     # (log10 axes scaled to their ranges, the largest coordinate difference), as documented.
-    from audit.starts import make_design, search_space
+    from audit.sweep.starts import make_design, search_space
     design = make_design(search_space(scenario), "sobol", 2048, scenario.sweep.seed)
     starts = design.starts(0, design.count)
     low, high = np.log10([1.0, 0.1]), np.log10([1000.0, 1000.0])

@@ -6,11 +6,11 @@ import json
 import numpy as np
 import pytest
 
-from audit.chunk_cache import ChunkStore
-from audit.parallel import ParallelPlan
-from audit.scenario import load_scenario
-from audit import sweep as sweep_module
-from audit.sweep import SweepRequest, run_sweep
+from audit.parallel.chunk_cache import ChunkStore
+from audit.parallel.plan import ParallelPlan
+from audit.inputs.scenario import load_scenario
+from audit.sweep import run as sweep_module
+from audit.sweep.run import SweepRequest, run_sweep
 
 import twin_optima as twin
 

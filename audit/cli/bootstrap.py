@@ -7,11 +7,11 @@ from pathlib import Path
 
 from rich.table import Table
 
-from ..bootstrap import BootstrapResult, bootstrap_scenario, total_refits
+from ..uncertainty.bootstrap import BootstrapResult, bootstrap_scenario, total_refits
 from ..errors import InputError
 from ..figures.bootstrap import write_figures
-from ..replicates import FATE_MEANINGS
-from ..resampling import SCHEMES, WILD_MULTIPLIERS
+from ..uncertainty.replicates import FATE_MEANINGS
+from ..uncertainty.resampling import SCHEMES, WILD_MULTIPLIERS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
                      show_audited_fit, sweep_reference, write_results)

@@ -6,7 +6,7 @@ import argparse
 from rich.table import Table
 
 from ..jsonable import jsonable
-from ..scenario import Scenario
+from ..inputs.scenario import Scenario
 from .common import EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario, out, print_json
 
 DESCRIPTION = """\

@@ -11,11 +11,11 @@ from rich.console import Console
 from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
-from ..best_fit import FROM_START, KnownFit, SweepReference
+from ..engine.best_fit import FROM_START, KnownFit, SweepReference
 from ..errors import InputError
-from ..parallel import BACKENDS, ParallelPlan
-from ..scenario import Scenario, load_scenario, solutions_fingerprint
-from ..sweep_result import reference_from_json
+from ..parallel.plan import BACKENDS, ParallelPlan
+from ..inputs.scenario import Scenario, load_scenario, solutions_fingerprint
+from ..sweep.result import reference_from_json
 
 #: Exit statuses shared by all commands.
 EXIT_OK, EXIT_FINDING, EXIT_BAD_INPUT = 0, 1, 2

@@ -6,10 +6,10 @@ import argparse
 import numpy as np
 from rich.table import Table
 
-from ..engine import METHODS
+from ..engine.batch import METHODS
 from ..errors import InputError
-from ..settings import nearest
-from ..single_fit import SingleFit, fit_once
+from ..inputs.settings import nearest
+from ..engine.single_fit import SingleFit, fit_once
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
                      open_scenario, out, print_json)
 

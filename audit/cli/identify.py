@@ -8,8 +8,8 @@ import numpy as np
 from rich.table import Table
 
 from ..figures.identifiability import write_figures
-from ..identifiability import Identifiability, identify_scenario
-from ..profiles import SIDE_STATUS
+from ..identifiability.analysis import Identifiability, identify_scenario
+from ..identifiability.profiles import SIDE_STATUS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
                      show_audited_fit, sweep_reference, write_results)

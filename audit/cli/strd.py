@@ -5,11 +5,11 @@ import argparse
 
 from rich.table import Table
 
-from ..engine import METHODS
-from ..outcomes import Outcome
-from ..strd_check import ProblemCheck, StrdReport, StrdSettings, check_folder, reference_files
-from ..strd_extended import EXTENDED_DIGITS
-from ..strd_grade import THRESHOLDS, VERDICT_LABELS, VERDICT_MEANINGS, Verdict
+from ..engine.batch import METHODS
+from ..engine.outcomes import Outcome
+from ..validation.check import ProblemCheck, StrdReport, StrdSettings, check_folder, reference_files
+from ..validation.extended_precision import EXTENDED_DIGITS
+from ..validation.grade import THRESHOLDS, VERDICT_LABELS, VERDICT_MEANINGS, Verdict
 from .common import EXIT_FINDING, EXIT_OK, add_command, add_json_option, out, print_json, progress_bar
 
 DEFAULTS = StrdSettings()

@@ -16,7 +16,7 @@ from matplotlib.colors import LinearSegmentedColormap
 from matplotlib.lines import Line2D
 from scipy import stats
 
-from ..bootstrap import BootstrapResult
+from ..uncertainty.bootstrap import BootstrapResult
 from .style import ASYMPTOTIC, EMPIRICAL, plt, save
 
 #: Pairs plots show at most this many parameters (the first ones), so panels stay readable.

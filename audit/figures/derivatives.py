@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.colors import LinearSegmentedColormap
 
-from ..derivatives import CENTRAL_POOR, REL_FLOOR, DerivativeAudit
+from ..derivatives.check import CENTRAL_POOR, REL_FLOOR, DerivativeAudit
 from .style import EMPIRICAL, OUTCOME_STYLE, plt, save
 
 HAND_COLOUR = OUTCOME_STYLE["oscillating"][0]

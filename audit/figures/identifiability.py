@@ -16,8 +16,8 @@ import numpy as np
 from matplotlib.colors import LinearSegmentedColormap
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
-from ..identifiability import Identifiability
-from ..profiles import NOT_WALKED
+from ..identifiability.analysis import Identifiability
+from ..identifiability.profiles import NOT_WALKED
 from .style import ASYMPTOTIC, EMPIRICAL, plt, save
 
 #: Negative → zero → positive, dark to light to dark so that the sign also shows in the cell text.

@@ -14,7 +14,7 @@ import numpy as np
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..sweep_result import CATEGORIES, SweepResult
+from ..sweep.result import CATEGORIES, SweepResult
 from .style import OUTCOME_MARKERS, OUTCOME_STYLE, plt, save
 from .sweep_maps import basin_figure, cases_on_map_figure, iteration_figure
 

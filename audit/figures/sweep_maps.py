@@ -15,7 +15,7 @@ from matplotlib.colors import BoundaryNorm, ListedColormap
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 
-from ..sweep_result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
+from ..sweep.result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
 from .style import OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, plt, save
 
 PANEL_SIZE = 3.1

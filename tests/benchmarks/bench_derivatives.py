@@ -16,10 +16,10 @@ from pathlib import Path
 
 import numpy as np
 
-from audit.derivative_points import check_points
-from audit.derivatives import audit_derivatives
-from audit.numeric_derivatives import numeric_derivatives
-from audit.scenario import load_scenario
+from audit.derivatives.points import check_points
+from audit.derivatives.check import audit_derivatives
+from audit.derivatives.numeric import numeric_derivatives
+from audit.inputs.scenario import load_scenario
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "probe-cooling"
 

@@ -2,7 +2,7 @@
 
     python tests/benchmarks/bench_identifiability.py [--points N] [--repeat R]
 
-The batched profiles (``audit.profiles.profile_all``: every parameter and both directions of a
+The batched profiles (``audit.identifiability.profiles.profile_all``: every parameter and both directions of a
 walk step, then of a refinement round of the interval ends, in one ``fit_batch`` call) are timed
 against the same algorithm run side by side: the same grid, doubling steps and refinement, but
 one side per call (``profile_walk.walk_sides`` and ``profile_ends.refine_crossings`` given one
@@ -21,15 +21,15 @@ from pathlib import Path
 
 import numpy as np
 
-from audit.engine import RefitSettings
-from audit.estimates import estimate
-from audit.best_fit import best_known_fit
-from audit.problem import Problem
-from audit.profile_ends import refine_crossings
-from audit.profile_walk import CEILING_RISES, NOT_WALKED, walk_sides
-from audit.profiles import plan_grid, profile_all
-from audit.scenario import load_scenario
-from audit.settings import SolverSettings
+from audit.engine.batch import RefitSettings
+from audit.engine.estimates import estimate
+from audit.engine.best_fit import best_known_fit
+from audit.engine.problem import Problem
+from audit.identifiability.profile_ends import refine_crossings
+from audit.identifiability.profile_walk import CEILING_RISES, NOT_WALKED, walk_sides
+from audit.identifiability.profiles import plan_grid, profile_all
+from audit.inputs.scenario import load_scenario
+from audit.inputs.settings import SolverSettings
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "probe-cooling"
 

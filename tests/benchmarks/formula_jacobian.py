@@ -17,11 +17,11 @@ from pathlib import Path
 
 import numpy as np
 
-from audit.engine import fit_batch
-from audit.problem import Problem
-from audit.strd import read_reference
-from audit.strd_extended import refine_in_extended_precision
-from audit.strd_grade import reference_model
+from audit.engine.batch import fit_batch
+from audit.engine.problem import Problem
+from audit.validation.reference import read_reference
+from audit.validation.extended_precision import refine_in_extended_precision
+from audit.validation.grade import reference_model
 
 DEFAULT_DIR = Path(__file__).resolve().parents[2].parent / "shared" / "reference" / "nist-strd"
 

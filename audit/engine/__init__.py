@@ -1,0 +1,8 @@
+"""The ground floor: the batched Gauss-Newton / Levenberg-Marquardt solver every stage reuses,
+the ``Problem`` it fits, outcome codes, asymptotic estimates and the traced single fit.
+It imports no other subpackage."""
+from .batch import BatchFit, fit_batch
+from .problem import Problem
+from .outcomes import Outcome
+
+__all__ = ["BatchFit", "Outcome", "Problem", "fit_batch"]

@@ -1,0 +1,104 @@
+"""Reading the measurements: a CSV file with a header row, checked row by row."""
+from __future__ import annotations
+
+import csv
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from .settings import nearest
+
+#: How many offending line numbers an error message lists before "and N more".
+LISTED_LINES = 8
+
+
+@dataclass
+class Measurements:
+    """Columns read from the data file.
+
+    Attributes:
+        x: (m,) for one predictor or (k, m) for k predictors.
+        y: (m,) observations.
+        sigma: (m,) standard deviations, or None.
+        lines: (m,) line numbers in the file of the rows kept (the header is line 1).
+        warnings: messages about dropped rows.
+    """
+
+    x: np.ndarray
+    y: np.ndarray
+    sigma: np.ndarray | None
+    lines: np.ndarray
+    warnings: list[str] = field(default_factory=list)
+
+
+def read_measurements(path: Path, x_columns: list[str], y_column: str, sigma_column: str | None,
+                      drop_nonfinite: bool = False, delimiter: str | None = None) -> Measurements:
+    """Read and check the columns of a CSV data file.
+
+    Raises:
+        InputError: missing file or column, non-numeric or non-finite values (unless
+            ``drop_nonfinite``), sigma ≤ 0, or no rows left; the message names the file, the
+            column and the line numbers.
+    """
+    if not path.is_file():
+        raise InputError(f"{path}: data file not found")
+    text = path.read_text(encoding="utf-8-sig")
+    if not text.strip():
+        raise InputError(f"{path}: data file is empty")
+    if delimiter is None:
+        first_line = text.splitlines()[0]
+        delimiter = next((mark for mark in (",", ";", "\t") if mark in first_line), ",")
+    reader = csv.reader(text.splitlines(), delimiter=delimiter)
+    header = [name.strip() for name in next(reader)]
+    rows = [(number, row) for number, row in enumerate(reader, start=2) if any(cell.strip() for cell in row)]
+    wanted = [*x_columns, y_column] + ([sigma_column] if sigma_column else [])
+    for name in wanted:
+        if name not in header:
+            raise InputError(f"{path}: no column '{name}'{nearest(name, header)}; columns: {', '.join(header)}")
+    positions = {name: header.index(name) for name in wanted}
+    values = {name: np.full(len(rows), np.nan) for name in wanted}
+    bad: dict[str, list[int]] = {name: [] for name in wanted}
+    for index, (number, row) in enumerate(rows):
+        for name in wanted:
+            cell = row[positions[name]].strip() if positions[name] < len(row) else ""
+            try:
+                values[name][index] = float(cell)
+            except ValueError:
+                pass
+            if not np.isfinite(values[name][index]):
+                bad[name].append(number)
+    lines = np.array([number for number, _ in rows], dtype=np.int64)
+    warnings: list[str] = []
+    unusable = np.zeros(len(rows), dtype=bool)
+    for name, numbers in bad.items():
+        if numbers and not drop_nonfinite:
+            raise InputError(f"{path}: column '{name}' has missing, non-numeric or non-finite values at "
+                             f"{_lines(numbers)}; fix them or set drop_nonfinite = true in [data]")
+        unusable |= np.isin(lines, numbers)
+    if unusable.any():
+        warnings.append(f"{path}: dropped {int(unusable.sum())} rows with missing or non-finite values at "
+                        f"{_lines(lines[unusable].tolist())}")
+    keep = ~unusable
+    if sigma_column:
+        non_positive = keep & (values[sigma_column] <= 0)
+        if non_positive.any():
+            raise InputError(f"{path}: column '{sigma_column}' (sigma) must be positive; it is not at "
+                             f"{_lines(lines[non_positive].tolist())}")
+    if not keep.any():
+        raise InputError(f"{path}: no usable rows")
+    x = np.array([values[name][keep] for name in x_columns])
+    return Measurements(
+        x=x[0] if len(x_columns) == 1 else x,
+        y=values[y_column][keep],
+        sigma=values[sigma_column][keep] if sigma_column else None,
+        lines=lines[keep],
+        warnings=warnings,
+    )
+
+
+def _lines(numbers: list[int]) -> str:
+    shown = ", ".join(str(n) for n in numbers[:LISTED_LINES])
+    more = f" and {len(numbers) - LISTED_LINES} more" if len(numbers) > LISTED_LINES else ""
+    return f"line{'s' if len(numbers) > 1 else ''} {shown}{more}"

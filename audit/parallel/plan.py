@@ -1,0 +1,97 @@
+"""The one place that knows how work is spread: joblib processes, or a Dask cluster via joblib.
+
+Stages cut their work into chunks and hand a function and the chunks to ``map_chunks``. The
+chunks, and so the results, are the same whatever runs them; only the wall-clock time changes.
+"""
+from __future__ import annotations
+
+import os
+from collections.abc import Callable, Iterable, Iterator
+from contextlib import ExitStack
+from dataclasses import dataclass
+from typing import Any
+
+import joblib
+
+from ..errors import InputError
+
+BACKENDS = ("processes", "dask")
+
+
+@dataclass(frozen=True)
+class ParallelPlan:
+    """How to run chunks.
+
+    Attributes:
+        jobs: worker processes on this machine; -1 (default) uses every core. Ignored by Dask,
+            whose workers are whatever the cluster has.
+        backend: "processes" (joblib's process pool on this machine) or "dask".
+        scheduler: address of a running Dask scheduler, e.g. "tcp://10.0.0.5:8786"
+            (backend "dask" only).
+    """
+
+    jobs: int = -1
+    backend: str = "processes"
+    scheduler: str | None = None
+
+    def __post_init__(self) -> None:
+        if self.backend not in BACKENDS:
+            raise InputError(f"backend must be one of {', '.join(BACKENDS)}, got {self.backend!r}")
+        if self.jobs == 0 or self.jobs < -1:
+            raise InputError(f"jobs must be a positive number of processes or -1 for all cores, got {self.jobs}")
+        if self.backend == "dask" and not self.scheduler:
+            raise InputError("the dask backend needs the address of a running scheduler (--scheduler ADDRESS)")
+
+    @property
+    def workers(self) -> int:
+        """Processes used on this machine (1 for Dask, which counts its own)."""
+        if self.backend == "dask":
+            return 1
+        return (os.cpu_count() or 1) if self.jobs == -1 else self.jobs
+
+
+def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: ParallelPlan) -> Iterator[Any]:
+    """Apply ``function`` to every chunk; yield the results in the order of ``chunks``.
+
+    Chunks are consumed lazily (a few per worker ahead), so a long iterable of small chunk
+    descriptions never sits in memory at once. With one job everything runs in this process.
+    """
+    if plan.backend == "dask":
+        # joblib's Dask backend hashes the function in a background thread; an unhashable one
+        # would fail there unseen and leave this generator waiting for ever.
+        try:
+            hash(function)
+        except TypeError:
+            raise TypeError(f"{type(function).__name__} must be hashable to run on Dask "
+                            "(a dataclass needs eq=False or frozen=True)") from None
+    with ExitStack() as stack:
+        if plan.backend == "dask":
+            stack.enter_context(_dask_backend(plan.scheduler))
+            parallel = joblib.Parallel(n_jobs=-1, return_as="generator", pre_dispatch="2*n_jobs")
+        else:
+            parallel = joblib.Parallel(n_jobs=plan.jobs, return_as="generator", pre_dispatch="2*n_jobs")
+        yield from parallel(joblib.delayed(function)(chunk) for chunk in chunks)
+
+
+class _dask_backend:
+    """Connect to the scheduler and make joblib send its tasks there while active."""
+
+    def __init__(self, address: str) -> None:
+        self.address = address
+
+    def __enter__(self):
+        try:
+            from distributed import Client
+        except ImportError:
+            raise InputError("the dask backend needs the optional packages: pip install 'fitaudit[dask]'") from None
+        try:
+            self.client = Client(self.address, timeout="10s")
+        except OSError as error:
+            raise InputError(f"cannot reach the Dask scheduler at {self.address}: {error}") from None
+        self.config = joblib.parallel_config(backend="dask")
+        self.config.__enter__()
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        self.config.__exit__(*exc_info)
+        self.client.close()
