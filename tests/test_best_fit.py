@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
-from audit.engine.best_fit import FROM_START, FROM_SWEEP, SweepReference, best_known_fit
 from audit.cli import main
+from audit.engine.best_fit import FROM_START, FROM_SWEEP, SweepReference, best_known_fit
 from audit.inputs.scenario import load_scenario, solutions_fingerprint
 from audit.sweep.result import reference_from_json
 

@@ -12,18 +12,17 @@ import pytest
 from scipy import stats
 from scipy.optimize import least_squares
 
-from audit.uncertainty.bootstrap import bootstrap_scenario, run_bootstrap
-from audit.engine.batch import RefitSettings
 from audit.cli import main
-from audit.engine.batch import fit_batch
-from audit.figures.bootstrap import write_figures
-from audit.uncertainty.intervals import bca_interval, jackknife_acceleration, percentile_interval
+from audit.engine.batch import RefitSettings, fit_batch
 from audit.engine.outcomes import Outcome
-from audit.parallel.plan import ParallelPlan
 from audit.engine.problem import Problem
+from audit.figures.bootstrap import write_figures
+from audit.inputs.scenario import load_scenario
+from audit.parallel.plan import ParallelPlan
+from audit.uncertainty.bootstrap import bootstrap_scenario, run_bootstrap
+from audit.uncertainty.intervals import bca_interval, jackknife_acceleration, percentile_interval
 from audit.uncertainty.replicates import FATES, classify, same_point
 from audit.uncertainty.resampling import PairsScheme, WildScheme, leave_one_out, leverages
-from audit.inputs.scenario import load_scenario
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
 

@@ -10,8 +10,8 @@ import pytest
 from scipy import stats
 from scipy.optimize import least_squares
 
-from audit.uncertainty.bootstrap import chunk_generator, chunk_size, run_bootstrap
 from audit.engine.problem import Problem
+from audit.uncertainty.bootstrap import chunk_generator, chunk_size, run_bootstrap
 from audit.uncertainty.resampling import build_scheme
 
 SAMPLES = 2000

@@ -17,15 +17,13 @@ import numpy as np
 import pytest
 import sympy
 from scipy.optimize import least_squares
-from scipy.stats import binomtest
 
 from audit import InputError, Outcome, Problem
 from audit.cli import main
-from audit.derivatives.points import check_points, sample_points
 from audit.derivatives.check import audit_derivatives, compare_derivatives
 from audit.engine.estimates import estimate
 from audit.figures.derivatives import write_figures
-from audit.inputs.scenario import Parameter, load_scenario
+from audit.inputs.scenario import load_scenario
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
 NIST_FILES = ("BoxBOD Chwirut1 Chwirut2 DanWood ENSO Eckerle4 Gauss1 Gauss2 Kirby2 Lanczos1 Lanczos3 MGH09 "
@@ -327,32 +325,6 @@ def test_a_formula_that_does_not_match_the_model_is_not_used(tmp_path):
 
 
 # ---------------------------------------------------------------- check points
-def test_check_points_are_the_least_squares_optimum_the_start_and_seeded_samples():
-    scenario = load_scenario(BUNDLED)
-    points = check_points(scenario.problem, scenario.parameters, scenario.solver, 50, seed=3)
-    # Outside reference for the best fit: scipy.optimize.least_squares from the same start.
-    np.testing.assert_allclose(points.params[0], scipy_reference_fit(scenario.problem, scenario.start), rtol=1e-7)
-    np.testing.assert_array_equal(points.params[1], scenario.start)
-    samples = points.params[2:]
-    lower = [p.lower for p in scenario.parameters]
-    upper = [p.upper for p in scenario.parameters]
-    assert np.all((samples >= lower) & (samples <= upper))
-    again = check_points(scenario.problem, scenario.parameters, scenario.solver, 50, seed=3)
-    np.testing.assert_array_equal(points.params, again.params)
-
-
-def test_log_axis_samples_are_log_uniform_and_unranged_ones_stay_near_the_start():
-    scenario = load_scenario(BUNDLED)
-    samples = sample_points(scenario.parameters, 4000, np.random.default_rng(11))
-    # tau on a log axis over [1, 1000]: half the samples below the geometric midpoint sqrt(1000),
-    # checked against the binomial law (scipy.stats.binomtest).
-    below = int(np.sum(samples[:, 2] < np.sqrt(1000.0)))
-    assert binomtest(below, 4000, 0.5).pvalue > 1e-3
-    free = (Parameter("offset", start=3.0), Parameter("rate", start=0.2, axis="log"))
-    near = sample_points(free, 1000, np.random.default_rng(1))
-    assert np.all(np.abs(near[:, 0] - 3.0) <= 1.5) and np.all((near[:, 1] >= 0.1) & (near[:, 1] <= 0.4))
-
-
 def test_points_where_the_model_is_not_finite_are_dropped_and_named():
     problem = power_problem(lambda x, b1, b2: [x**b2, b1 * x**b2 * np.log(np.where(x > 0, x, 1.0))])
     audit = compare_derivatives(problem, np.array([[2.0, 1.5], [1.0, -1.0]]), ("fine", "pole at x = 0"))

@@ -7,17 +7,16 @@ import pickle
 import numdifftools as nd
 import numpy as np
 import pytest
+from conftest import nist_folder
 
 from audit.cli import main
 from audit.engine.batch import fit_batch
 from audit.errors import InputError
 from audit.inputs.formula import check_formula, compile_formula
 from audit.inputs.formula_syntax import FUNCTIONS
-from audit.parallel.plan import ParallelPlan, map_chunks
 from audit.inputs.scenario import load_scenario
+from audit.parallel.plan import ParallelPlan, map_chunks
 from audit.validation.reference import log_relative_error, nist_formula
-
-from conftest import nist_folder
 
 NAMES = ("A", "k", "c")
 NIST_FILES = sorted(path.stem for path in nist_folder().glob("*.dat")) if nist_folder() else []

@@ -13,14 +13,13 @@ from scipy.optimize import brentq, least_squares
 
 from audit import Problem
 from audit.cli import main
-from audit.identifiability.collinearity import collinearity_indices
-from audit.identifiability.analysis import analyse, identify_scenario
 from audit.engine.best_fit import best_known_fit
-from audit.parallel.plan import ParallelPlan
+from audit.identifiability.analysis import analyse, identify_scenario
+from audit.identifiability.collinearity import collinearity_indices
 from audit.inputs.scenario import load_scenario
 from audit.inputs.settings import IdentifiabilitySettings, SolverSettings
+from audit.parallel.plan import ParallelPlan
 from audit.validation.reference import log_relative_error
-
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
 TIGHT = SolverSettings(tolerance=1e-12, max_iterations=1000)

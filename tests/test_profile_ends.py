@@ -9,10 +9,9 @@ from scipy import stats
 from scipy.optimize import brentq, least_squares
 
 from audit import Problem
-from audit.identifiability.analysis import analyse
 from audit.engine.best_fit import best_known_fit
+from audit.identifiability.analysis import analyse
 from audit.inputs.settings import IdentifiabilitySettings, SolverSettings
-
 
 #: Five significant digits are the requirement; the refined ends are checked one digit tighter.
 END_RTOL = 1e-6

@@ -7,10 +7,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from engine_problems import cycling_problem
 
 from audit import Outcome, Problem, fit_batch
-
-from test_engine import cycling_problem
 
 #: Start, minimum and size of the large residual of ``zigzag_problem``.
 START, MINIMUM, LARGE_RESIDUAL = 3.0, 2.0, 1000.0

@@ -5,8 +5,8 @@ import numpy as np
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import least_squares
 
-from audit.sweep.equivalent_solutions import EXCHANGE, MIRROR, find_equivalent
 from audit.engine.problem import Problem
+from audit.sweep.equivalent_solutions import EXCHANGE, MIRROR, find_equivalent
 from audit.sweep.recommend import choose_step_factor
 from audit.sweep.solutions import UNCATALOGUED, SolutionTolerance, cluster, merge_catalogues
 

@@ -6,8 +6,8 @@ import pytest
 from scipy.stats import qmc
 
 from audit.errors import InputError
-from audit.sweep.permutation import keyed_permutation, permutation_keys
 from audit.inputs.scenario import load_scenario
+from audit.sweep.permutation import keyed_permutation, permutation_keys
 from audit.sweep.starts import SearchSpace, make_design, map_axis_values, map_design, search_space
 
 SPACE = SearchSpace(names=("amplitude", "rate", "offset"), lower=np.array([0.0, 1e-3, -1.0]),

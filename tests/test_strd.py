@@ -14,12 +14,12 @@ import pytest
 
 from audit.cli import main
 from audit.engine.batch import fit_batch
-from audit.errors import InputError
 from audit.engine.outcomes import Outcome
-from audit.validation.reference import log_relative_error, nist_formula, read_reference
+from audit.errors import InputError
 from audit.validation.check import StrdSettings, check_folder
 from audit.validation.extended_precision import refine_in_extended_precision
 from audit.validation.grade import THRESHOLDS, Verdict, grade_runs, reference_model
+from audit.validation.reference import log_relative_error, nist_formula, read_reference
 
 
 @lru_cache(maxsize=None)

@@ -10,18 +10,17 @@ import json
 
 import numpy as np
 import pytest
+import twin_optima as twin
 from scipy.optimize import least_squares
 
 from audit.cli import main
 from audit.figures.sweep import write_figures
+from audit.inputs.scenario import load_scenario
 from audit.parallel.plan import ParallelPlan
 from audit.sweep.recommend import histogram_percentile
-from audit.inputs.scenario import load_scenario
-from audit.sweep.starts import make_design, search_space
-from audit.sweep.run import SweepRequest, run_sweep
 from audit.sweep.result import CATEGORIES
-
-import twin_optima as twin
+from audit.sweep.run import SweepRequest, run_sweep
+from audit.sweep.starts import make_design, search_space
 
 
 def sweep(folder, **request):

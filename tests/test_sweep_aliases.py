@@ -13,14 +13,14 @@ from scipy.optimize import least_squares
 
 import audit.sweep.run
 from audit.engine.batch import fit_batch
-from audit.sweep.equivalent_solutions import ALIAS, MIRROR, PERIOD_SHIFT, find_equivalent
 from audit.engine.outcomes import Outcome
-from audit.parallel.plan import ParallelPlan
 from audit.engine.problem import Problem
 from audit.inputs.scenario import load_scenario
-from audit.sweep.starts import make_design, search_space
-from audit.sweep.run import SweepRequest, run_sweep
+from audit.parallel.plan import ParallelPlan
+from audit.sweep.equivalent_solutions import ALIAS, MIRROR, PERIOD_SHIFT, find_equivalent
 from audit.sweep.result import BEST
+from audit.sweep.run import SweepRequest, run_sweep
+from audit.sweep.starts import make_design, search_space
 
 SINE_DT = 0.25
 SINE_T = np.arange(40) * SINE_DT

@@ -15,10 +15,10 @@ import pytest
 from scipy.optimize import least_squares
 
 from audit.cli import main
-from audit.parallel.plan import ParallelPlan
 from audit.inputs.scenario import load_scenario
-from audit.sweep.run import SweepRequest, run_sweep
+from audit.parallel.plan import ParallelPlan
 from audit.sweep.result import BEST
+from audit.sweep.run import SweepRequest, run_sweep
 
 
 def sweep(folder, **request):

@@ -5,14 +5,13 @@ import json
 
 import numpy as np
 import pytest
+import twin_optima as twin
 
+from audit.inputs.scenario import load_scenario
 from audit.parallel.chunk_cache import ChunkStore
 from audit.parallel.plan import ParallelPlan
-from audit.inputs.scenario import load_scenario
 from audit.sweep import run as sweep_module
 from audit.sweep.run import SweepRequest, run_sweep
-
-import twin_optima as twin
 
 
 class Interrupt(KeyboardInterrupt):

@@ -7,9 +7,9 @@ from pathlib import Path
 
 from rich.table import Table
 
-from ..uncertainty.bootstrap import BootstrapResult, bootstrap_scenario, total_refits
 from ..errors import InputError
 from ..figures.bootstrap import write_figures
+from ..uncertainty.bootstrap import BootstrapResult, bootstrap_scenario, total_refits
 from ..uncertainty.replicates import FATE_MEANINGS
 from ..uncertainty.resampling import SCHEMES, WILD_MULTIPLIERS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,

@@ -5,8 +5,8 @@ import argparse
 
 from rich.table import Table
 
-from ..jsonable import jsonable
 from ..inputs.scenario import Scenario
+from ..jsonable import jsonable
 from .common import EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario, out, print_json
 
 DESCRIPTION = """\

@@ -13,8 +13,8 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, T
 
 from ..engine.best_fit import FROM_START, KnownFit, SweepReference
 from ..errors import InputError
-from ..parallel.plan import BACKENDS, ParallelPlan
 from ..inputs.scenario import Scenario, load_scenario, solutions_fingerprint
+from ..parallel.plan import BACKENDS, ParallelPlan
 from ..sweep.result import reference_from_json
 
 #: Exit statuses shared by all commands.

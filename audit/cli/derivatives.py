@@ -8,9 +8,9 @@ from pathlib import Path
 from rich.table import Table
 
 from ..derivatives.check import SOURCES, DerivativeAudit, audit_derivatives
+from ..engine.outcomes import Outcome
 from ..errors import InputError
 from ..figures.derivatives import write_figures
-from ..engine.outcomes import Outcome
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_scenario_argument,
                      number, open_scenario, out, print_json, progress_bar, show_audited_fit, sweep_reference,
                      write_results)

@@ -7,11 +7,11 @@ import numpy as np
 from rich.table import Table
 
 from ..engine.batch import METHODS
+from ..engine.single_fit import SingleFit, fit_once
 from ..errors import InputError
 from ..inputs.settings import nearest
-from ..engine.single_fit import SingleFit, fit_once
-from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number,
-                     open_scenario, out, print_json)
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario,
+                     out, print_json)
 
 DESCRIPTION = """\
 Fit the scenario's model once, from its starting values, by iterated linearisation, and show

@@ -9,9 +9,9 @@ import numpy as np
 from rich.table import Table
 
 from ..figures.sweep import write_figures
-from ..sweep.starts import DESIGNS
-from ..sweep.run import SweepRequest, run_sweep
 from ..sweep.result import BEST, CATEGORIES, SweepResult
+from ..sweep.run import SweepRequest, run_sweep
+from ..sweep.starts import DESIGNS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, err, number, open_scenario, out, parallel_plan, print_json, progress_bar,
                      write_results)

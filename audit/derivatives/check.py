@@ -27,15 +27,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..engine.best_fit import KnownFit, SweepReference
-from .consequences import Consequences, fit_consequences
-from .diagnosis import Diagnosis, Evidence, diagnose, no_hand_derivative
-from .points import check_points
+from ..engine.problem import FLOOR_FRACTION, Problem
 from ..errors import InputError
 from ..inputs.formula import CompiledFormula, compile_formula
-from ..jsonable import jsonable
-from .numeric import EPS, SAFETY, numeric_derivatives
-from ..engine.problem import FLOOR_FRACTION, Problem
 from ..inputs.scenario import Scenario
+from ..jsonable import jsonable
+from .consequences import Consequences, fit_consequences
+from .diagnosis import Diagnosis, Evidence, diagnose, no_hand_derivative
+from .numeric import EPS, SAFETY, numeric_derivatives
+from .points import check_points
 
 #: Differences below this share of the column's size never count as a mistake.
 REL_FLOOR = 1e-6

@@ -16,10 +16,10 @@ import numpy as np
 
 from ..engine.batch import fit_batch
 from ..engine.estimates import estimate
-from ..jsonable import jsonable
 from ..engine.outcomes import Outcome, outcome_labels
 from ..engine.problem import FLOOR_FRACTION, Problem
 from ..inputs.settings import SolverSettings
+from ..jsonable import jsonable
 
 NUMERIC = "numeric (central differences)"
 HAND = "hand-derived"

@@ -2,7 +2,7 @@
 the ``Problem`` it fits, outcome codes, asymptotic estimates and the traced single fit.
 It imports no other subpackage."""
 from .batch import BatchFit, fit_batch
-from .problem import Problem
 from .outcomes import Outcome
+from .problem import Problem
 
 __all__ = ["BatchFit", "Outcome", "Problem", "fit_batch"]

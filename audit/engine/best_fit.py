@@ -17,6 +17,7 @@ fit, later a profile refit) so that the stages can say so loudly instead of stay
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+
 import numpy as np
 
 from ..jsonable import jsonable

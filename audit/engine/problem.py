@@ -30,6 +30,13 @@ CENTRAL_DIFFERENCE_STEP = np.finfo(float).eps ** (1.0 / 3.0)
 #: typical magnitude instead of its own size (convergence test, difference steps), so that a
 #: parameter near zero cannot stall the relative-change test.
 FLOOR_FRACTION = 1e-3
+#: Two parameter sets give the same curve when their weighted difference at the samples is below
+#: this fraction of the weighted residuals' norm at the fit compared with (converged end points
+#: agree to about the solver tolerance, far below it), or below CURVE_FLOOR of the weighted
+#: data's norm (exact data). The sweep's equivalent solutions and the bootstrap's basin check
+#: share it.
+CURVE_TOLERANCE = 1e-3
+CURVE_FLOOR = 1e-9
 
 
 class _ShapeMismatch(Exception):

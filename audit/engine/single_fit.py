@@ -12,9 +12,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..jsonable import jsonable
 from .batch import fit_batch
 from .estimates import Estimates, estimate
-from ..jsonable import jsonable
 from .outcomes import Outcome
 from .problem import FLOOR_FRACTION, Problem
 

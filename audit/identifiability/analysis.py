@@ -21,19 +21,18 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from ..engine.best_fit import KnownFit, SweepReference, best_known_fit
-from .collinearity import Collinearity, collinearity_indices
 from ..engine.batch import RefitSettings
-from ..errors import InputError
+from ..engine.best_fit import KnownFit, SweepReference, best_known_fit
 from ..engine.estimates import Estimates, estimate
-from ..jsonable import jsonable
 from ..engine.linsolve import RANK_TOLERANCE
-from ..parallel.plan import ParallelPlan
 from ..engine.problem import Problem
-from .profiles import SIDE_STATUS, Profiles, plan_grid, profile_all
+from ..errors import InputError
 from ..inputs.settings import IdentifiabilitySettings, SolverSettings
+from ..jsonable import jsonable
+from ..parallel.plan import ParallelPlan
+from .collinearity import Collinearity, collinearity_indices
+from .profiles import SIDE_STATUS, Profiles, plan_grid, profile_all
 from .weak_directions import WEAK_INDEX, condition_indices, describe, singular_values, weak_rows
-
 
 NO_FIT = ("no fit from the scenario's starting values converged; "
           "find a working start first (fitaudit fit) before judging identifiability")

@@ -29,10 +29,10 @@ import numpy as np
 from scipy import stats
 
 from ..engine.batch import RefitSettings
-from ..jsonable import jsonable
 from ..engine.outcomes import Outcome
-from ..parallel.plan import ParallelPlan, map_chunks
 from ..engine.problem import Problem
+from ..jsonable import jsonable
+from ..parallel.plan import ParallelPlan, map_chunks
 from .profile_ends import ProfileEnds, refine_crossings
 from .profile_walk import AT_BOUND, CEILING_RISES, CROSSED, FITS_FAILED, NOT_WALKED, SideWalk, walk_sides
 

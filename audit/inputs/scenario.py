@@ -15,13 +15,13 @@ from pathlib import Path
 
 import numpy as np
 
-from .data_file import read_measurements
+from ..engine.problem import Problem
 from ..errors import InputError
+from .data_file import read_measurements
 from .formula import check_formula, compile_formula, formula_problem_parts
 from .model_file import describe_model_error, load_model_module
-from ..engine.problem import Problem
-from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, IdentifiabilitySettings,
-                       SolverSettings, SweepSettings, nearest, read_section, reject_unknown)
+from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, IdentifiabilitySettings, SolverSettings,
+                       SweepSettings, nearest, read_section, reject_unknown)
 
 SCENARIO_FILE = "scenario.toml"
 TOP_KEYS = ("title", "description", "data", "model", "parameters", *SECTIONS)

@@ -13,9 +13,9 @@ import numpy as np
 
 from ..engine.batch import fit_batch
 from ..engine.problem import Problem
-from .starts import StartDesign
 from .chunk import FAILURE_KINDS
 from .result import TrajectoryCase
+from .starts import StartDesign
 
 
 @dataclass(frozen=True)

@@ -24,16 +24,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import InputError
 from ..engine.estimates import estimate
+from ..engine.problem import CURVE_FLOOR, CURVE_TOLERANCE, Problem
+from ..errors import InputError
 from .parameter_relation import relations
-from ..engine.problem import Problem
 
-#: Curves count as the same when their weighted difference is below this fraction of the
-#: weighted residuals' norm at the best fit (converged end points agree to about the solver
-#: tolerance, far below it), or below CURVE_FLOOR of the weighted data's norm (exact data).
-CURVE_TOLERANCE = 1e-3
-CURVE_FLOOR = 1e-9
 #: Two solutions are distinct minima, not points of one flat valley, when some parameter
 #: differs by more than this many asymptotic standard errors at the best fit.
 DISTINCT_STD_ERRORS = 10.0

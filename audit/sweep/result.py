@@ -11,8 +11,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..engine.best_fit import SweepReference
-from ..jsonable import jsonable
 from ..engine.outcomes import MEANINGS, Outcome
+from ..jsonable import jsonable
 
 #: How a run ended once converged runs are split by solution; the keys of the figure style.
 CATEGORIES = ("best", "other", "diverged", "oscillating", "stalled", "singular", "model_error")

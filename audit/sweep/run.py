@@ -29,20 +29,20 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..parallel.chunk_cache import ChunkStore, cache_key, code_digest
-from .equivalent_solutions import ALIAS, Equivalence, SameCurve, find_equivalent
 from ..errors import InputError
-from ..parallel.plan import ParallelPlan, map_chunks
-from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
-                        safe_regions)
 from ..inputs.scenario import solutions_fingerprint
 from ..inputs.settings import nearest
-from .solutions import Catalogue, SolutionTolerance, merge_catalogues
-from .starts import StartDesign, make_design, map_axis_values, map_design, search_space
+from ..parallel.chunk_cache import ChunkStore, cache_key, code_digest
+from ..parallel.plan import ParallelPlan, map_chunks
 from .advice import next_step
 from .cases import CaseSelection, trace_cases
 from .chunk import FAILURE_KINDS, ChunkWork
+from .equivalent_solutions import ALIAS, Equivalence, SameCurve, find_equivalent
+from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
+                        safe_regions)
 from .result import BEST, BasinMap, SweepResult
+from .solutions import Catalogue, SolutionTolerance, merge_catalogues
+from .starts import StartDesign, make_design, map_axis_values, map_design, search_space
 from .tally import DesignTally, MapGrid
 
 #: Runs (starts × step factors × methods) per chunk, before rounding the starts per chunk down

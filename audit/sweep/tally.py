@@ -10,12 +10,12 @@ from __future__ import annotations
 
 import numpy as np
 
-from .equivalent_solutions import SameCurve
 from ..engine.outcomes import Outcome
-from .recommend import DISTANCE_BINS, start_distances
-from .solutions import NO_SOLUTION, UNCATALOGUED
 from .chunk import CASES
+from .equivalent_solutions import SameCurve
+from .recommend import DISTANCE_BINS, start_distances
 from .result import BEST, CATEGORIES, CATEGORY_OF_OUTCOME, OTHER
+from .solutions import NO_SOLUTION, UNCATALOGUED
 
 
 def global_labels(label: np.ndarray, mapping: np.ndarray) -> np.ndarray:

@@ -19,18 +19,18 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from scipy import stats
 
-from .disagreement import Flag, IntervalComparison, compare_intervals
 from ..engine.batch import RefitSettings, fit_batch
-from ..errors import InputError
+from ..engine.best_fit import KnownFit, SweepReference, best_known_fit
 from ..engine.estimates import Estimates, estimate
-from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percentile_interval
+from ..engine.problem import Problem
+from ..errors import InputError
+from ..inputs.scenario import Scenario
 from ..jsonable import jsonable
 from ..parallel.plan import ParallelPlan, map_chunks
-from ..engine.problem import Problem
+from .disagreement import Flag, IntervalComparison, compare_intervals
+from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percentile_interval
 from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale, same_point
 from .resampling import Scheme, build_scheme, leave_one_out
-from ..inputs.scenario import Scenario
-from ..engine.best_fit import KnownFit, SweepReference, best_known_fit
 
 #: Refits per chunk: up to MAX_CHUNK (large enough for the batched solver to amortise numpy's
 #: per-call cost and a worker its per-task cost), and fewer for many observations, so that a

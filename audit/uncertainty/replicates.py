@@ -22,10 +22,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..sweep.equivalent_solutions import CURVE_FLOOR, CURVE_TOLERANCE
-from ..jsonable import jsonable
 from ..engine.outcomes import Outcome
-from ..engine.problem import Problem
+from ..engine.problem import CURVE_FLOOR, CURVE_TOLERANCE, Problem
+from ..jsonable import jsonable
 
 #: Two converged end points of one minimum differ by the solver's tolerance, far below a
 #: standard error; two distinct minima with the same curve (symmetries) lie many apart.

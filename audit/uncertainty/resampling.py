@@ -21,8 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import InputError
 from ..engine.problem import Problem
+from ..errors import InputError
 
 SCHEMES = ("residual", "wild", "pairs")
 WILD_MULTIPLIERS = ("rademacher", "mammen")

@@ -15,11 +15,11 @@ from pathlib import Path
 import numpy as np
 
 from ..engine.batch import METHODS, fit_batch
+from ..engine.outcomes import Outcome
 from ..errors import InputError
 from ..jsonable import jsonable
-from ..engine.outcomes import Outcome
-from .reference import ReferenceProblem, read_reference
 from .grade import THRESHOLDS, RunGrades, Verdict, grade_runs, lre_ssr_at_certified, reference_model, verdict_label
+from .reference import ReferenceProblem, read_reference
 
 DIFFICULTIES = ("Lower", "Average", "Higher")
 

@@ -26,13 +26,13 @@ from enum import IntEnum
 import numpy as np
 
 from ..engine.batch import BatchFit
-from ..errors import InputError
 from ..engine.estimates import estimate
-from ..inputs.formula import CompiledFormula, compile_formula
 from ..engine.outcomes import Outcome
 from ..engine.problem import Problem
-from .reference import NistFormula, ReferenceProblem, log_relative_error, nist_formula
+from ..errors import InputError
+from ..inputs.formula import CompiledFormula, compile_formula
 from .extended_precision import refine_in_extended_precision, ssr_digits_available
+from .reference import NistFormula, ReferenceProblem, log_relative_error, nist_formula
 
 #: Digits (LRE) a run must reach to pass: parameters, residual sum of squares, standard deviations.
 THRESHOLDS = {"params": 6.0, "ssr": 6.0, "sd": 4.0}

@@ -16,9 +16,9 @@ from pathlib import Path
 
 import numpy as np
 
-from audit.uncertainty.bootstrap import bootstrap_scenario, total_refits
-from audit.parallel.plan import ParallelPlan
 from audit.inputs.scenario import load_scenario
+from audit.parallel.plan import ParallelPlan
+from audit.uncertainty.bootstrap import bootstrap_scenario, total_refits
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "probe-cooling"
 

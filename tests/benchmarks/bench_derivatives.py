@@ -16,9 +16,9 @@ from pathlib import Path
 
 import numpy as np
 
-from audit.derivatives.points import check_points
 from audit.derivatives.check import audit_derivatives
 from audit.derivatives.numeric import numeric_derivatives
+from audit.derivatives.points import check_points
 from audit.inputs.scenario import load_scenario
 
 SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "probe-cooling"

@@ -22,8 +22,8 @@ from pathlib import Path
 import numpy as np
 
 from audit.engine.batch import RefitSettings
-from audit.engine.estimates import estimate
 from audit.engine.best_fit import best_known_fit
+from audit.engine.estimates import estimate
 from audit.engine.problem import Problem
 from audit.identifiability.profile_ends import refine_crossings
 from audit.identifiability.profile_walk import CEILING_RISES, NOT_WALKED, walk_sides

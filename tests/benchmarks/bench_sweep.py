@@ -84,8 +84,8 @@ def child(scenario: Path, jobs: int, out: Path) -> None:
     """Run one sweep and print its timing, memory and a digest of the result."""
     from joblib.externals.loky import get_reusable_executor
 
-    from audit.parallel.plan import ParallelPlan
     from audit.inputs.scenario import load_scenario
+    from audit.parallel.plan import ParallelPlan
     from audit.sweep.run import SweepRequest, run_sweep
 
     loaded = load_scenario(scenario)

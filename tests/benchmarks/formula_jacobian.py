@@ -19,9 +19,9 @@ import numpy as np
 
 from audit.engine.batch import fit_batch
 from audit.engine.problem import Problem
-from audit.validation.reference import read_reference
 from audit.validation.extended_precision import refine_in_extended_precision
 from audit.validation.grade import reference_model
+from audit.validation.reference import read_reference
 
 DEFAULT_DIR = Path(__file__).resolve().parents[2].parent / "shared" / "reference" / "nist-strd"
 
