@@ -3,7 +3,11 @@
 A model module defines ``model(x, p1, p2, ...)``; optionally a hand-derived Jacobian with the
 same arguments and a ``guess(x, y) -> {name: value}`` for starting values. The names of the
 functions are set in ``[model]``. The module is executed from its file, never imported by name,
-so two scenarios with a ``model.py`` each do not collide.
+so two scenarios with a ``model.py`` each do not collide. Modules it imports from its own folder
+(a ``helper.py`` beside it) are part of the model: their sources enter ``ModelModule.digest``, so
+a changed helper invalidates every cache keyed by the scenario, and they are dropped from
+``sys.modules`` after loading, so the next load reads them from disk again instead of reusing
+the first version imported in this process.
 """
 from __future__ import annotations
 
@@ -23,13 +27,18 @@ from .settings import nearest
 
 @dataclass(frozen=True)
 class ModelModule:
-    """The callables found in a model module, and the model's parameter names."""
+    """The callables found in a model module, and the model's parameter names.
+
+    ``digest`` is a SHA-256 (hex) of the model file and of every module it imported from its
+    own folder, each named by its path relative to that folder.
+    """
 
     path: Path
     model: Callable
     parameter_names: tuple[str, ...]
     jacobian: Callable | None
     guess: Callable | None
+    digest: str
 
 
 def load_model_module(path: Path, function: str, jacobian: str | None, guess: str | None) -> ModelModule:
@@ -42,7 +51,7 @@ def load_model_module(path: Path, function: str, jacobian: str | None, guess: st
     """
     if not path.is_file():
         raise InputError(f"{path}: model file not found")
-    module = _execute(path)
+    module, local_sources = _execute(path)
     model = _function(module, function, path, "model")
     names = _parameter_names(model, path)
     hand_jacobian = _function(module, jacobian, path, "jacobian") if jacobian else None
@@ -52,7 +61,8 @@ def load_model_module(path: Path, function: str, jacobian: str | None, guess: st
             raise InputError(f"{path}: {jacobian}() takes ({', '.join(jacobian_names)}) after x, "
                              f"but {function}() takes ({', '.join(names)}); they must match")
     guesser = _function(module, guess, path, "guess") if guess else None
-    return ModelModule(path=path, model=model, parameter_names=names, jacobian=hand_jacobian, guess=guesser)
+    return ModelModule(path=path, model=model, parameter_names=names, jacobian=hand_jacobian, guess=guesser,
+                       digest=_sources_digest(path, local_sources))
 
 
 def describe_model_error(error: BaseException, path: Path, action: str) -> str:
@@ -63,10 +73,13 @@ def describe_model_error(error: BaseException, path: Path, action: str) -> str:
     return f"{where}: {type(error).__name__}: {error} ({action})"
 
 
-def _execute(path: Path) -> ModuleType:
+def _execute(path: Path) -> tuple[ModuleType, list[Path]]:
+    """The executed module, and the source files of the modules it imported from its folder."""
     digest = hashlib.sha256(str(path.resolve()).encode()).hexdigest()[:12]
     spec = importlib.util.spec_from_file_location(f"fitaudit_model_{digest}", path)
     module = importlib.util.module_from_spec(spec)
+    folder = path.parent.resolve()
+    already_loaded = set(sys.modules)
     sys.path.insert(0, str(path.parent))
     try:
         spec.loader.exec_module(module)
@@ -76,7 +89,29 @@ def _execute(path: Path) -> ModuleType:
         raise InputError(describe_model_error(error, path, "while loading the module")) from None
     finally:
         sys.path.remove(str(path.parent))
-    return module
+        imported_here = {name: sys.modules[name] for name in set(sys.modules) - already_loaded}
+        local = {name: source for name, source in
+                 ((name, _source_inside(loaded, folder)) for name, loaded in imported_here.items()) if source}
+        for name in local:
+            del sys.modules[name]
+    return module, sorted(set(local.values()))
+
+
+def _source_inside(module: ModuleType, folder: Path) -> Path | None:
+    """The module's source file when it lies under ``folder``, else None."""
+    file = getattr(module, "__file__", None)
+    if not file:
+        return None
+    source = Path(file).resolve()
+    return source if source.is_relative_to(folder) and source.is_file() else None
+
+
+def _sources_digest(path: Path, local_sources: list[Path]) -> str:
+    folder = path.parent.resolve()
+    digest = hashlib.sha256()
+    for source in [path.resolve(), *local_sources]:
+        digest.update(source.relative_to(folder).as_posix().encode() + b"\0" + source.read_bytes() + b"\0")
+    return digest.hexdigest()
 
 
 def _function(module: ModuleType, name: str, path: Path, role: str) -> Callable:

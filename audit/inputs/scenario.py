@@ -80,6 +80,7 @@ class Scenario:
     sigma_name: str | None
     data_lines: np.ndarray
     fingerprint: str
+    model_digest: str = ""
     warnings: tuple[str, ...] = field(default=())
 
     @property
@@ -133,8 +134,8 @@ def load_scenario(path: Path | str) -> Scenario:
                                      _text(data_table, "delimiter", source, "data"))
     warnings = list(measurements.warnings)
 
-    model, jacobian, guess, names, model_path, formula = _model(model_table, folder, source, x_names,
-                                                                tuple(config["parameters"]))
+    model, jacobian, guess, names, model_path, formula, model_digest = _model(
+        model_table, folder, source, x_names, tuple(config["parameters"]))
     table = config["parameters"]
     for name in table:
         if name not in names:
@@ -164,12 +165,13 @@ def load_scenario(path: Path | str) -> Scenario:
         for name in pair:
             if name not in names:
                 raise InputError(f"{source} [sweep] maps: '{name}' is not a parameter{nearest(name, names)}")
-    files = [raw, data_path.read_bytes()] + ([model_path.read_bytes()] if model_path else [])
+    files = [raw, data_path.read_bytes(), model_digest.encode()]
     return Scenario(
         path=folder, title=str(config.get("title", folder.name)), description=str(config.get("description", "")),
         problem=problem, parameters=parameters, data_path=data_path, model_path=model_path,
         x_names=x_names, y_name=y_name, sigma_name=sigma_name, data_lines=measurements.lines,
-        fingerprint=hashlib.sha256(b"\0".join(files)).hexdigest(), warnings=tuple(warnings), **sections,
+        fingerprint=hashlib.sha256(b"\0".join(files)).hexdigest(), model_digest=model_digest,
+        warnings=tuple(warnings), **sections,
     )
 
 
@@ -191,7 +193,7 @@ def _columns(value, source: str) -> tuple[str, ...]:
 
 
 def _model(table: dict, folder: Path, source: str, x_names: tuple[str, ...], parameter_names: tuple[str, ...]):
-    """(model, jacobian, guess, names, model_path, formula) from the [model] table.
+    """(model, jacobian, guess, names, model_path, formula, model_digest) from the [model] table.
 
     A formula model (``expression``) takes its parameters in the order of the [parameters]
     table and names each predictor by its [data] x column; its derivatives are exact. A Python
@@ -209,13 +211,14 @@ def _model(table: dict, folder: Path, source: str, x_names: tuple[str, ...], par
                              "formula is the model and its derivatives are derived exactly")
         compiled = compile_formula(expression, parameter_names, x_names, where=f"{source} [model] expression")
         parts = formula_problem_parts(compiled)
-        return parts["model"], parts["jacobian"], None, compiled.parameter_names, None, parts["formula"]
+        return parts["model"], parts["jacobian"], None, compiled.parameter_names, None, parts["formula"], ""
     module = load_model_module(folder / file, _text(table, "function", source, "model") or "model",
                                _text(table, "jacobian", source, "model"), _text(table, "guess", source, "model"))
     formula = _text(table, "formula", source, "model")
     if formula is not None:
         check_formula(formula, module.parameter_names, x_names, where=f"{source} [model] formula")
-    return module.model, module.jacobian, module.guess, module.parameter_names, module.path, formula
+    return (module.model, module.jacobian, module.guess, module.parameter_names, module.path, formula,
+            module.digest)
 
 
 def _guessed_starts(guess, measurements, model_path, names, table, source) -> dict[str, float]:
@@ -313,8 +316,8 @@ def solutions_fingerprint(scenario: Scenario) -> str:
     for array in (problem.x, problem.y, problem.weights):
         digest.update(b"-" if array is None else np.ascontiguousarray(array, dtype=float).tobytes())
         digest.update(b"\0")
-    model = scenario.model_path.read_bytes() if scenario.model_path is not None else b""
-    parts = [model, getattr(problem.model, "__name__", "").encode(), (problem.formula or "").encode(),
+    parts = [scenario.model_digest.encode(), getattr(problem.model, "__name__", "").encode(),
+             (problem.formula or "").encode(),
              repr([(p.name, p.lower, p.upper, p.axis) for p in scenario.parameters]).encode(),
              repr(sorted(vars(scenario.solver).items())).encode()]
     for part in parts:

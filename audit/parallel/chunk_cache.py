@@ -1,12 +1,15 @@
 """Finished chunks on disk, so that an interrupted or repeated sweep computes only what is missing.
 
 A cache folder is named by a hash of everything that decides a chunk's content: the scenario's
-fingerprint (its TOML, data and model files), the sweep's settings, the format below and the
-source of the package's computing modules (``code_digest``), so that a changed engine never
-reuses chunks an older one wrote. Each chunk is one ``.npz`` file of plain arrays (no pickles),
+fingerprint (its TOML, its data, its model file and the modules the model imports from its
+folder), the sweep's settings, the format below and the source of the package's computing
+modules (``code_digest``), so that a changed model or engine never reuses chunks an older one
+wrote. Each chunk is one ``.npz`` file of plain arrays (no pickles),
 written to a temporary file in the same folder and moved into place with ``os.replace``, which
-is atomic on one file system: a crash leaves either the whole chunk or none of it. A file that cannot be read back (a disk
-full during an earlier write, a stray file) is treated as missing and recomputed.
+is atomic on one file system: a crash leaves either the whole chunk or none of it. Every chunk
+carries a SHA-256 of its arrays (names, types, shapes and bytes); a file that cannot be read back
+or whose arrays no longer match their checksum (a disk full during an earlier write, a flipped
+bit, a stray file or folder in its place) is treated as missing and recomputed, never trusted.
 """
 from __future__ import annotations
 
@@ -14,19 +17,21 @@ import functools
 import hashlib
 import json
 import os
+import shutil
 import tempfile
-import zipfile
 from pathlib import Path
 
 import numpy as np
 
 #: Raise when the layout of a chunk file changes: old caches are then ignored (changes to the
 #: computation are caught by ``code_digest``).
-CACHE_FORMAT = 3
+CACHE_FORMAT = 4
 #: Folders of the package that only present results; their code never changes a chunk.
 PRESENTATION = ("cli", "figures", "report")
 #: Hex digits of the settings hash in the folder name.
 KEY_LENGTH = 20
+#: The array in each chunk file that holds the SHA-256 of the others.
+CHECKSUM = "checksum"
 
 
 @functools.cache
@@ -78,9 +83,15 @@ class ChunkStore:
             return None
         try:
             with np.load(path, allow_pickle=False) as stored:
-                return {name: stored[name] for name in stored.files}
-        except (OSError, ValueError, EOFError, zipfile.BadZipFile):
+                arrays = {name: stored[name] for name in stored.files}
+        except Exception:
+            # A damaged zip or deflate stream raises whatever its parser meets first (BadZipFile,
+            # zlib.error, ValueError, NotImplementedError, ...): all mean "not stored".
             return None
+        stored_checksum = arrays.pop(CHECKSUM, None)
+        if stored_checksum is None or stored_checksum.tobytes() != _checksum(arrays).tobytes():
+            return None
+        return arrays
 
     def has(self, index: int) -> bool:
         """True when chunk ``index`` is stored and readable."""
@@ -89,10 +100,13 @@ class ChunkStore:
     def save(self, index: int, arrays: dict[str, np.ndarray]) -> Path:
         """Write chunk ``index`` atomically and return its path."""
         self.folder.mkdir(parents=True, exist_ok=True)
+        if self.path(index).is_dir():
+            # Something made a folder where the chunk belongs; it is ours to replace.
+            shutil.rmtree(self.path(index))
         handle, temporary = tempfile.mkstemp(dir=self.folder, prefix=f".{self.stage}-", suffix=".partial")
         try:
             with os.fdopen(handle, "wb") as stream:
-                np.savez_compressed(stream, **arrays)
+                np.savez_compressed(stream, **arrays, **{CHECKSUM: _checksum(arrays)})
                 stream.flush()
                 os.fsync(stream.fileno())
             os.replace(temporary, self.path(index))
@@ -100,3 +114,13 @@ class ChunkStore:
             Path(temporary).unlink(missing_ok=True)
             raise
         return self.path(index)
+
+
+def _checksum(arrays: dict[str, np.ndarray]) -> np.ndarray:
+    """(32,) uint8: SHA-256 over every array's name, type, shape and bytes, in name order."""
+    digest = hashlib.sha256()
+    for name in sorted(arrays):
+        array = np.ascontiguousarray(arrays[name])
+        digest.update(f"{name}\0{array.dtype.str}\0{array.shape}\0".encode())
+        digest.update(array.tobytes())
+    return np.frombuffer(digest.digest(), dtype=np.uint8)
