@@ -1,4 +1,11 @@
-"""Reading the measurements: a CSV file with a header row, checked row by row."""
+"""Reading the measurements: a CSV file with a header row, checked row by row.
+
+The file must be UTF-8 (a byte-order mark and Windows or old Mac line ends are fine); another
+encoding is refused with the line of the first undecodable byte rather than guessed, because a
+wrong guess turns a typo into a silently wrong number. Cells are numbers as a CSV reader writes
+them: ASCII digits, sign, point, exponent, ``nan``/``inf``; Python's extras (``1_0``, full-width
+or other scripts' digits) are text.
+"""
 from __future__ import annotations
 
 import csv
@@ -44,29 +51,33 @@ def read_measurements(path: Path, x_columns: list[str], y_column: str, sigma_col
     """
     if not path.is_file():
         raise InputError(f"{path}: data file not found")
-    text = path.read_text(encoding="utf-8-sig")
+    text = _text(path)
     if not text.strip():
         raise InputError(f"{path}: data file is empty")
     if delimiter is None:
         first_line = text.splitlines()[0]
         delimiter = next((mark for mark in (",", ";", "\t") if mark in first_line), ",")
+    if len(delimiter) != 1:
+        raise InputError(f"{path}: the delimiter must be one character, got {delimiter!r}")
     reader = csv.reader(text.splitlines(), delimiter=delimiter)
-    header = [name.strip() for name in next(reader)]
-    rows = [(number, row) for number, row in enumerate(reader, start=2) if any(cell.strip() for cell in row)]
+    try:
+        header = [name.strip() for name in next(reader)]
+        rows = [(number, row) for number, row in enumerate(reader, start=2) if any(cell.strip() for cell in row)]
+    except csv.Error as error:
+        raise InputError(f"{path} line {reader.line_num}: not readable as CSV: {error}") from None
     wanted = [*x_columns, y_column] + ([sigma_column] if sigma_column else [])
     for name in wanted:
         if name not in header:
             raise InputError(f"{path}: no column '{name}'{nearest(name, header)}; columns: {', '.join(header)}")
+        if header.count(name) > 1:
+            raise InputError(f"{path}: column '{name}' appears twice in the header; rename one copy")
     positions = {name: header.index(name) for name in wanted}
     values = {name: np.full(len(rows), np.nan) for name in wanted}
     bad: dict[str, list[int]] = {name: [] for name in wanted}
     for index, (number, row) in enumerate(rows):
         for name in wanted:
             cell = row[positions[name]].strip() if positions[name] < len(row) else ""
-            try:
-                values[name][index] = float(cell)
-            except ValueError:
-                pass
+            values[name][index] = _number(cell)
             if not np.isfinite(values[name][index]):
                 bad[name].append(number)
     lines = np.array([number for number, _ in rows], dtype=np.int64)
@@ -96,6 +107,31 @@ def read_measurements(path: Path, x_columns: list[str], y_column: str, sigma_col
         lines=lines[keep],
         warnings=warnings,
     )
+
+
+def _text(path: Path) -> str:
+    """The file as text (UTF-8, an optional byte-order mark dropped), or an InputError naming the line."""
+    raw = path.read_bytes()
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as error:
+        line = raw[:error.start].count(b"\n") + 1
+        raise InputError(f"{path} line {line}: not UTF-8 text (byte 0x{raw[error.start]:02x}); save the file "
+                         "as UTF-8") from None
+    if "\0" in text:
+        line = text[:text.index("\0")].count("\n") + 1
+        raise InputError(f"{path} line {line}: a NUL byte; this looks like a binary file, not CSV text")
+    return text
+
+
+def _number(cell: str) -> float:
+    """The cell's value, NaN when it is not a number as CSV readers write numbers."""
+    if not cell.isascii() or "_" in cell:
+        return float("nan")
+    try:
+        return float(cell)
+    except ValueError:
+        return float("nan")
 
 
 def _lines(numbers: list[int]) -> str:

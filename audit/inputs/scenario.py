@@ -110,8 +110,14 @@ def load_scenario(path: Path | str) -> Scenario:
         raise InputError(f"{toml_path}: scenario file not found")
     raw = toml_path.read_bytes()
     try:
-        config = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as error:
+        # A byte-order mark, as some editors write, is not part of the TOML.
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as error:
+        line = raw[:error.start].count(b"\n") + 1
+        raise InputError(f"{toml_path} line {line}: not UTF-8 text; save the file as UTF-8") from None
+    try:
+        config = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
         raise InputError(f"{toml_path}: not valid TOML: {error}") from None
     source = str(toml_path)
     reject_unknown(config, TOP_KEYS, source)

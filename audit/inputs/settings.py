@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -159,25 +160,51 @@ def _convert(section: str, key: str, value: Any, default: Any, where: str) -> An
         if not isinstance(value, list) or not value or not all(
                 isinstance(item, (int, float)) and not isinstance(item, bool) and 0 < item <= 1 for item in value):
             raise InputError(f"{label}: must be a non-empty list of numbers in (0, 1], got {value!r}")
+        if len(set(value)) != len(value):
+            raise InputError(f"{label}: each step factor may appear only once, got {value!r}")
         return tuple(float(item) for item in value)
     raise AssertionError(f"no conversion for {section}.{key}")
 
 
+#: Largest accepted sizes. Each bounds memory or time that grows with it (a (runs, iterations)
+#: history, an r × r map, samples × observations replicates); each is far above what an audit
+#: needs, so reaching one is a typo (1e9 for 1e3), refused before anything is allocated.
+MOST_ITERATIONS = 10_000
+MOST_SWEEP_POINTS = 100_000_000
+MOST_RESOLUTION = 1001
+MOST_SAMPLES = 1_000_000
+MOST_PROFILE_POINTS = 1001
+MOST_RANDOM_POINTS = 10_000
+MOST_DERIVATIVE_POINTS = 10_000
+
+
+def _between(low: int, high: int) -> tuple[Any, str]:
+    return (lambda v: low <= v <= high, f"must be between {low} and {high}")
+
+
+_SEED = (lambda v: v >= 0, "must be a whole number ≥ 0")
+
 #: Value checks beyond the type: (section, key) -> (test, what the value must be).
 LIMITS: dict[tuple[str, str], tuple[Any, str]] = {
-    ("solver", "tolerance"): (lambda v: v > 0, "must be positive"),
-    ("solver", "max_iterations"): (lambda v: v >= 1, "must be at least 1"),
-    ("sweep", "points"): (lambda v: v >= 1, "must be at least 1"),
-    ("sweep", "resolution"): (lambda v: v >= 2, "must be at least 2"),
-    ("bootstrap", "samples"): (lambda v: v >= 2, "must be at least 2"),
+    # inf or NaN would make every first step "converge"; 1 or more accepts any step.
+    ("solver", "tolerance"): (lambda v: 0 < v < 1, "must be a positive number below 1"),
+    ("solver", "max_iterations"): _between(1, MOST_ITERATIONS),
+    ("sweep", "points"): _between(1, MOST_SWEEP_POINTS),
+    ("sweep", "resolution"): _between(2, MOST_RESOLUTION),
+    ("sweep", "seed"): _SEED,
+    ("bootstrap", "samples"): _between(2, MOST_SAMPLES),
     ("bootstrap", "confidence"): (lambda v: 0 < v < 1, "must lie between 0 and 1"),
-    ("identifiability", "profile_points"): (lambda v: v >= 5, "must be at least 5"),
+    ("bootstrap", "seed"): _SEED,
+    ("identifiability", "profile_points"): _between(5, MOST_PROFILE_POINTS),
     ("identifiability", "confidence"): (lambda v: 0 < v < 1, "must lie between 0 and 1"),
     ("identifiability", "strong_correlation"): (lambda v: 0 < v < 1, "must lie between 0 and 1"),
-    ("identifiability", "profile_reach"): (lambda v: v > 1, "must exceed 1 (asymptotic half-widths)"),
-    ("identifiability", "collinearity_limit"): (lambda v: v > 1, "must exceed 1"),
-    ("identifiability", "random_points"): (lambda v: v >= 1, "must be at least 1"),
-    ("derivatives", "points"): (lambda v: v >= 1, "must be at least 1"),
+    ("identifiability", "profile_reach"): (lambda v: 1 < v < math.inf,
+                                              "must be a finite number above 1 (asymptotic half-widths)"),
+    ("identifiability", "collinearity_limit"): (lambda v: 1 < v < math.inf, "must be a finite number above 1"),
+    ("identifiability", "random_points"): _between(1, MOST_RANDOM_POINTS),
+    ("identifiability", "seed"): _SEED,
+    ("derivatives", "points"): _between(1, MOST_DERIVATIVE_POINTS),
+    ("derivatives", "seed"): _SEED,
 }
 
 
