@@ -7,7 +7,8 @@ from rich.table import Table
 
 from ..inputs.scenario import Scenario
 from ..jsonable import jsonable
-from .common import EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario, out, print_json
+from .common import (EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario, out, print_json,
+                     shown)
 
 DESCRIPTION = """\
 Read a scenario (scenario.toml, the data file and the model) and check everything that can be
@@ -53,12 +54,12 @@ def run(args: argparse.Namespace) -> int:
         print_json(summary(scenario))
         return EXIT_OK
     problem = scenario.problem
-    out.print(f"[bold]{scenario.title}[/]  ({scenario.path})")
-    predictors = ", ".join(scenario.x_names)
-    weights = f", sigma from '{scenario.sigma_name}'" if scenario.sigma_name else ", unweighted"
-    out.print(f"data: {scenario.data_path.name}: {problem.n_obs} observations of '{scenario.y_name}' "
+    out.print(f"[bold]{shown(scenario.title)}[/]  ({shown(scenario.path)})")
+    predictors = shown(", ".join(scenario.x_names))
+    weights = f", sigma from '{shown(scenario.sigma_name)}'" if scenario.sigma_name else ", unweighted"
+    out.print(f"data: {shown(scenario.data_path.name)}: {problem.n_obs} observations of '{shown(scenario.y_name)}' "
               f"against {predictors}{weights}")
-    source = scenario.model_path.name if scenario.model_path else "formula"
+    source = shown(scenario.model_path.name) if scenario.model_path else "formula"
     if scenario.model_path is None:
         jacobian = "exact Jacobian derived from the formula"
     elif problem.has_jacobian:
@@ -67,7 +68,7 @@ def run(args: argparse.Namespace) -> int:
         jacobian = "numeric (central-difference) Jacobian"
     out.print(f"model: {source}, {problem.n_params} parameters, {jacobian}")
     if problem.formula:
-        out.print(f"formula: {problem.formula}")
+        out.print(f"formula: {shown(problem.formula)}")
     table = Table(title="parameters", title_justify="left")
     for heading in ("name", "start", "range", "scale"):
         table.add_column(heading, justify="right" if heading != "name" else "left")

@@ -2,9 +2,14 @@
 from __future__ import annotations
 
 import argparse
+import fcntl
 import json
+import os
+import re
 import sys
-from collections.abc import Callable
+import traceback
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 from rich.console import Console
@@ -17,16 +22,30 @@ from ..inputs.scenario import Scenario, load_scenario, solutions_fingerprint
 from ..parallel.plan import BACKENDS, ParallelPlan
 from ..sweep.result import reference_from_json
 
-#: Exit statuses shared by all commands.
-EXIT_OK, EXIT_FINDING, EXIT_BAD_INPUT = 0, 1, 2
+#: Exit statuses shared by all commands: 3 is an error the program did not foresee (a bug, or a
+#: model misbehaving in a way no check caught), never confused with a finding (1).
+EXIT_OK, EXIT_FINDING, EXIT_BAD_INPUT, EXIT_UNEXPECTED = 0, 1, 2, 3
+#: Set to 1 to see the traceback of an unexpected error.
+TRACEBACK_VARIABLE = "FITAUDIT_TRACEBACK"
+#: The lock file in an output folder; a second run on the same folder is refused while it is held.
+LOCK_FILE = ".fitaudit.lock"
+#: C0 and C1 control characters (ESC among them), which would drive the terminal.
+CONTROL_CHARACTERS = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f]")
 
 #: Tables are wide; when the output is not a terminal, do not squeeze them to 80 columns.
 PIPE_WIDTH = 200
 
-out = Console(highlight=False)
-err = Console(stderr=True, highlight=False)
+# emoji=False: ':x:' in a column name is text, not a picture.
+out = Console(highlight=False, emoji=False)
+err = Console(stderr=True, highlight=False, emoji=False)
 if not out.is_terminal:
-    out = Console(highlight=False, width=PIPE_WIDTH)
+    out = Console(highlight=False, emoji=False, width=PIPE_WIDTH)
+
+
+def shown(text: object) -> str:
+    """A user's string (title, column name, path) ready for a rich console: control characters
+    (ESC sequences) removed, markup brackets escaped."""
+    return escape(CONTROL_CHARACTERS.sub("", str(text)))
 
 
 def add_command(subparsers, name: str, summary: str, description: str, examples: str,
@@ -98,22 +117,67 @@ def write_results(result, folder: Path, name: str, write_figures: Callable[[obje
 
 
 def run_handler(args: argparse.Namespace) -> int:
-    """Run a command's handler; bad input becomes one line on stderr and exit status 2."""
+    """Run a command's handler; bad input becomes one line on stderr and exit status 2, an
+    unforeseen error one line and status 3 (with the traceback when FITAUDIT_TRACEBACK=1).
+
+    The output folder (``args.out``) is checked and locked before anything is computed.
+    """
     try:
-        return args.handler(args)
+        with claimed_output(getattr(args, "out", None)):
+            return args.handler(args)
     except InputError as error:
-        err.print(f"[bold red]fitaudit: error:[/] {escape(str(error))}", markup=True, soft_wrap=True)
+        err.print(f"[bold red]fitaudit: error:[/] {shown(error)}", soft_wrap=True)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         err.print("fitaudit: interrupted")
         return 130
+    except Exception as error:
+        if os.environ.get(TRACEBACK_VARIABLE) == "1":
+            err.print(shown(traceback.format_exc()), soft_wrap=True)
+        err.print(f"[bold red]fitaudit: unexpected error:[/] {shown(type(error).__name__)}: {shown(error)} "
+                  f"(rerun with {TRACEBACK_VARIABLE}=1 for the traceback)", soft_wrap=True)
+        return EXIT_UNEXPECTED
+
+
+@contextmanager
+def claimed_output(out_folder: str | None) -> Iterator[None]:
+    """Make sure ``out_folder`` can be written and hold its lock while the command runs.
+
+    A folder this call created is removed again if the command left it empty (bad input).
+
+    Raises:
+        InputError: the path is a file or lies inside one, cannot be created or written, or
+            another fitaudit run holds its lock.
+    """
+    if not out_folder:
+        yield
+        return
+    folder = Path(out_folder)
+    existed = folder.is_dir()
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        lock = open(folder / LOCK_FILE, "a")
+    except OSError as error:
+        raise InputError(f"-o {folder}: cannot write there: {error.strerror or error}") from None
+    try:
+        try:
+            fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise InputError(f"-o {folder}: another fitaudit run is writing to this folder; wait for it to "
+                             "finish or choose another folder") from None
+        yield
+    finally:
+        lock.close()
+        if not existed and [entry.name for entry in folder.iterdir()] == [LOCK_FILE]:
+            (folder / LOCK_FILE).unlink()
+            folder.rmdir()
 
 
 def open_scenario(args: argparse.Namespace) -> Scenario:
     """Load the scenario named on the command line and show its warnings (not in JSON mode)."""
     scenario = load_scenario(args.scenario)
     for warning in scenario.warnings:
-        err.print(f"[yellow]warning:[/] {escape(warning)}", soft_wrap=True)
+        err.print(f"[yellow]warning:[/] {shown(warning)}", soft_wrap=True)
     return scenario
 
 
@@ -151,13 +215,13 @@ def sweep_reference(scenario: Scenario, out_folder: str | None) -> SweepReferenc
     try:
         payload = json.loads(path.read_text())
         if payload.get("fingerprint") != solutions_fingerprint(scenario):
-            err.print(f"[yellow]note:[/] {escape(str(path))} is not used: it was written for other data, model, "
+            err.print(f"[yellow]note:[/] {shown(path)} is not used: it was written for other data, model, "
                       "parameter ranges or solver settings; run 'fitaudit sweep' again to audit its best fit",
                       soft_wrap=True)
             return None
         return reference_from_json(payload, scenario.names)
     except (OSError, ValueError, KeyError, TypeError, AttributeError) as error:
-        err.print(f"[yellow]note:[/] {escape(str(path))} is not used: it cannot be read ({escape(str(error))})",
+        err.print(f"[yellow]note:[/] {shown(path)} is not used: it cannot be read ({shown(error)})",
                   soft_wrap=True)
         return None
 
@@ -166,12 +230,12 @@ def show_audited_fit(known: KnownFit | None, reference: SweepReference | None, o
     """Which fit the stage audited, and a warning line when a lower SSR is known."""
     if known is None:
         return
-    out.print(escape(known.summary), soft_wrap=True)
+    out.print(shown(known.summary), soft_wrap=True)
     for note in known.notes:
-        out.print(f"[yellow]note:[/] {escape(note)}", soft_wrap=True)
+        out.print(f"[yellow]note:[/] {shown(note)}", soft_wrap=True)
     if known.source == FROM_START and reference is None:
         folder = Path(out_folder or DEFAULT_OUT)
-        out.print(f"[yellow]note:[/] no sweep of this scenario in {escape(str(folder))}: run 'fitaudit sweep' "
-                  f"(-o {escape(str(folder))}) to search the parameter ranges for a lower SSR", soft_wrap=True)
+        out.print(f"[yellow]note:[/] no sweep of this scenario in {shown(folder)}: run 'fitaudit sweep' "
+                  f"(-o {shown(folder)}) to search the parameter ranges for a lower SSR", soft_wrap=True)
     if known.warning is not None:
-        out.print(f"[bold red]warning:[/] {escape(known.warning)}", soft_wrap=True)
+        out.print(f"[bold red]warning:[/] {shown(known.warning)}", soft_wrap=True)
