@@ -303,7 +303,8 @@ def _isolate_failures(call, params: np.ndarray, x: np.ndarray, problem: Problem,
             return call(params, x)
     except _ShapeMismatch as error:
         raise InputError(str(error)) from None
-    except Exception:
+    except (Exception, SystemExit):
+        # sys.exit() inside a model is a failure of those runs, not the end of the audit.
         if params.shape[0] == 1:
             missing = np.full((1, problem.n_obs), np.nan)
             return missing if width is None else [missing] * width

@@ -121,6 +121,8 @@ def _function(module: ModuleType, name: str, path: Path, role: str) -> Callable:
                      if inspect.isfunction(value) and value.__module__ == module.__name__]
         raise InputError(f"{path}: no function '{name}' for the {role}{nearest(name, functions)}; "
                          f"functions defined: {', '.join(functions) or 'none'}")
+    if inspect.isclass(candidate):
+        raise InputError(f"{path}: '{name}' is a class; the {role} must be a function")
     return candidate
 
 

@@ -235,7 +235,7 @@ def _guessed_starts(guess, measurements, model_path, names, table, source) -> di
         raise InputError(f"{source} [parameters] {missing[0]}: no start given and the model has no guess function")
     try:
         values = guess(measurements.x, measurements.y)
-    except Exception as error:
+    except (Exception, SystemExit) as error:
         raise InputError(describe_model_error(error, model_path, "while guessing starting values")) from None
     if not isinstance(values, dict) or any(name not in values for name in missing):
         raise InputError(f"{model_path}: the guess function must return a dict with a value for "
@@ -285,12 +285,16 @@ def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> No
         try:
             with np.errstate(all="ignore"):
                 output = function(problem.x, *columns)
-        except Exception as error:
+        except (Exception, SystemExit) as error:
             raise InputError(describe_model_error(error, path, "evaluating at the starting values")) from None
         parts = list(output.values()) if isinstance(output, dict) else (
             [output] if role == "model" else list(output) if isinstance(output, (list, tuple)) else [output])
         for part in parts:
-            array = np.asarray(part, dtype=float)
+            array = np.asarray(part)
+            if array.dtype.kind not in "biuf":
+                # Complex values would lose their imaginary part silently; strings and objects fail later.
+                raise InputError(f"{path}: {function.__name__}() returned {type(part).__name__} of dtype "
+                                 f"{array.dtype} at the starting values; expected real numbers")
             try:
                 np.broadcast_to(array, expected)
             except ValueError:

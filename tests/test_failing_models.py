@@ -1,0 +1,82 @@
+"""Models that misbehave: only the runs they fail are marked, and the message names the model file."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.optimize import least_squares
+
+from audit import InputError
+from audit.engine.batch import fit_batch
+from audit.engine.outcomes import Outcome
+from audit.inputs.scenario import load_scenario
+
+DATA = "t,signal\n0,5.0\n1,3.1\n2,1.8\n3,1.1\n4,0.7\n5,0.4\n"
+TOML = """
+[data]
+file = "data.csv"
+x = "t"
+y = "signal"
+[model]
+file = "model.py"
+[parameters]
+amplitude = { start = 4.0, range = [0.1, 10.0] }
+rate = { start = 0.5, range = [0.01, 5.0] }
+"""
+EXITING = """
+import sys
+import numpy as np
+
+def model(t, amplitude, rate):
+    if np.any(amplitude > 50):
+        sys.exit(7)
+    return amplitude * np.exp(-rate * t)
+"""
+
+
+def test_a_model_calling_sys_exit_marks_only_its_runs(write_scenario):
+    scenario = load_scenario(write_scenario(TOML, model=EXITING, data=DATA))
+    starts = np.array([[4.0, 0.5], [60.0, 0.5], [5.0, 0.4]])
+    fits = fit_batch(scenario.problem, starts, np.ones(3), tol=1e-10, max_iter=100)
+    assert fits.outcome[1] == Outcome.MODEL_ERROR
+    # The other runs reach the least-squares fit (reference: scipy.optimize.least_squares).
+    x, y = scenario.problem.x, scenario.problem.y
+    expected = least_squares(lambda p: p[0] * np.exp(-p[1] * x) - y, [4.0, 0.5], xtol=1e-14, ftol=1e-14).x
+    for run in (0, 2):
+        assert fits.outcome[run] == Outcome.CONVERGED
+        np.testing.assert_allclose(fits.params[run], expected, rtol=1e-6)
+
+
+def test_a_model_calling_sys_exit_at_the_start_names_the_model_file(write_scenario):
+    folder = write_scenario(TOML.replace("start = 4.0", "start = 60.0").replace("10.0]", "100.0]"),
+                            model=EXITING, data=DATA)
+    with pytest.raises(InputError) as caught:
+        load_scenario(folder)
+    assert str(folder / "model.py") in str(caught.value) and "SystemExit" in str(caught.value)
+
+
+@pytest.mark.parametrize("body", ["return 'a string'", "return np.exp", "return t + 1j * amplitude * rate"])
+def test_a_model_returning_no_real_numbers_names_the_model_file(write_scenario, body):
+    model = f"import numpy as np\n\ndef model(t, amplitude, rate):\n    {body}\n"
+    folder = write_scenario(TOML, model=model, data=DATA)
+    with pytest.raises(InputError) as caught:
+        load_scenario(folder)
+    assert str(folder / "model.py") in str(caught.value) and "\n" not in str(caught.value)
+
+
+@pytest.mark.parametrize("body", ["return 'fast'", "return np.array([1.0, 2.0])", "return None"])
+def test_a_guess_returning_no_dict_names_the_model_file(write_scenario, body):
+    model = ("import numpy as np\n\ndef model(t, amplitude, rate):\n    return amplitude * np.exp(-rate * t)\n\n"
+             f"def guess(t, y):\n    {body}\n")
+    toml = TOML.replace("[model]\n", "[model]\nguess = \"guess\"\n").replace("start = 4.0, ", "")
+    folder = write_scenario(toml, model=model, data=DATA)
+    with pytest.raises(InputError) as caught:
+        load_scenario(folder)
+    assert str(folder / "model.py") in str(caught.value) and "guess" in str(caught.value)
+
+
+def test_a_class_as_the_model_names_the_model_file(write_scenario):
+    model = "class model:\n    def __init__(self, t, amplitude, rate):\n        pass\n"
+    folder = write_scenario(TOML, model=model, data=DATA)
+    with pytest.raises(InputError) as caught:
+        load_scenario(folder)
+    assert str(folder / "model.py") in str(caught.value)
