@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import argparse
-import fcntl
 import json
 import os
 import re
@@ -160,9 +159,7 @@ def claimed_output(out_folder: str | None) -> Iterator[None]:
     except OSError as error:
         raise InputError(f"-o {folder}: cannot write there: {error.strerror or error}") from None
     try:
-        try:
-            fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
+        if not _try_lock(lock):
             raise InputError(f"-o {folder}: another fitaudit run is writing to this folder; wait for it to "
                              "finish or choose another folder") from None
         yield
@@ -171,6 +168,25 @@ def claimed_output(out_folder: str | None) -> Iterator[None]:
         if not existed and [entry.name for entry in folder.iterdir()] == [LOCK_FILE]:
             (folder / LOCK_FILE).unlink()
             folder.rmdir()
+
+
+def _try_lock(handle) -> bool:
+    """Take an exclusive lock on the open file ``handle`` without waiting; False when another
+    process holds it. The system drops the lock when the process ends, however it ends."""
+    try:
+        import fcntl
+    except ImportError:  # Windows
+        import msvcrt
+        try:
+            msvcrt.locking(handle.fileno(), msvcrt.LK_NBLCK, 1)
+            return True
+        except OSError:
+            return False
+    try:
+        fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        return True
+    except BlockingIOError:
+        return False
 
 
 def open_scenario(args: argparse.Namespace) -> Scenario:
