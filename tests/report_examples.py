@@ -53,6 +53,7 @@ def draw_example_figure(folder: Path, name: str, pdf: bool = True) -> tuple[Path
     axes.set_xlabel("time (s)")
     axes.set_ylabel("signal")
     axes.legend()
+    figure.tight_layout()
     png = folder / f"{name}.png"
     figure.savefig(png)
     pdf_path = folder / f"{name}.pdf" if pdf else None

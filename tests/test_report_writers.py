@@ -21,12 +21,13 @@ import pytest
 from markdown_it import MarkdownIt
 from report_examples import HOSTILE, HOSTILE_TITLE, LONG_WORD, example_document
 
+from audit.report.column_widths import Measure, column_shares
 from audit.report.document import Document, Figure, Section, Table
-from audit.report.html import write_html
+from audit.report.html import HTML_MEASURE, write_html
 from audit.report.markdown import write_markdown
 
 #: Elements that never have an end tag (HTML Living Standard, "void elements").
-VOID_ELEMENTS = {"meta", "img", "br", "hr", "link", "input", "wbr"}
+VOID_ELEMENTS = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source", "track", "wbr"}
 
 
 class TreeReader(HTMLParser):
@@ -219,3 +220,28 @@ def test_writers_refuse_a_verdict_word_they_do_not_know(tmp_path):
     for write in (write_html, write_markdown):
         with pytest.raises(ValueError, match="maybe"):
             write(document, tmp_path / "appendix")
+
+
+def test_column_shares_follow_the_content_but_keep_the_longest_word_whole():
+    """Hand derivation. Weights are the longest cells: 10 ("Lengthiest") and 39 (twenty "w"
+    words), so by weight alone the first column gets 10/49 = 0.204 of the line. Its longest word
+    needs (10 + 2 padding) / 50 = 0.24 of a 50-character line, so it is held at 0.24 and the
+    second column gets the remaining 0.76 (more than its own need, (11 + 2) / 50 = 0.26)."""
+    measure = Measure(line_characters=50, padding_characters=2, bold_width=1.0, break_longer_than=16, break_every=8)
+    table = Table(caption="c", header=("Name", "Description"), rows=(("Lengthiest", " ".join(["w"] * 20)),))
+    assert column_shares(table, measure) == pytest.approx([0.24, 0.76])
+    # on a 20-character line the minima alone, 12/20 + 13/20 = 1.25, exceed it: both shrink by
+    # the same factor, to 12/25 and 13/25
+    narrow = Measure(line_characters=20, padding_characters=2, bold_width=1.0, break_longer_than=16, break_every=8)
+    assert column_shares(table, narrow) == pytest.approx([12 / 25, 13 / 25])
+
+
+def test_html_columns_get_the_shares_of_the_line(example):
+    document, folder = example
+    reader = read_html(write_html(document, folder / "appendix.html").read_text(encoding="utf-8"))
+    widths = [float(attributes["style"].removeprefix("width: ").removesuffix("%"))
+              for tag, attributes in reader.start_tags if tag == "col"]
+    tables = [block for section in document.sections for block in section.blocks if isinstance(block, Table)]
+    expected = [100 * share for table in tables for share in column_shares(table, HTML_MEASURE)]
+    assert widths == pytest.approx(expected, abs=0.0051)  # written with two decimals
+    assert sum(widths) == pytest.approx(100 * len(tables), abs=0.05)

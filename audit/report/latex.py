@@ -31,6 +31,7 @@ import re
 import unicodedata
 from pathlib import Path
 
+from .column_widths import Measure, column_shares
 from .document import Document, Figure, Paragraph, Preformatted, Section, Table
 from .writer_common import linked_figure, numbered_blocks, one_line, section_ids, status_word, without_controls
 
@@ -56,15 +57,11 @@ GREEK_CAPITALS_AS_LATIN = {"ALPHA": "A", "BETA": "B", "EPSILON": "E", "ZETA": "Z
 #: A word longer than this gets a break point every BREAK_EVERY characters.
 BREAK_LONGER_THAN = 16
 BREAK_EVERY = 8
-#: Relative width of a table column: its longest cell in characters, within these bounds.
-COLUMN_WEIGHT_BOUNDS = (6, 40)
-#: Tables are set in \small with 4 pt column padding. A column needs at least its longest
-#: unbreakable word: counted in characters of \small text, a 345 pt line (10 pt article) holds
-#: about 64 (5.4 pt each, wide letters included); bold headings are about 1.3 times wider; the
-#: padding (2\tabcolsep = 8 pt) is 1.5 characters.
-LINE_CHARACTERS = 64
-BOLD_WIDTH = 1.3
-PADDING_CHARACTERS = 1.5
+#: Tables are set in \small with 4 pt column padding: a 345 pt line (10 pt article) holds about 64
+#: characters of \small text (5.4 pt each, wide letters included), bold headings are about 1.3
+#: times wider and the padding (2\tabcolsep = 8 pt) is 1.5 characters.
+LATEX_MEASURE = Measure(line_characters=64, padding_characters=1.5, bold_width=1.3,
+                        break_longer_than=BREAK_LONGER_THAN, break_every=BREAK_EVERY)
 #: Characters allowed in a figure path given to \includegraphics.
 SAFE_FIGURE_PATH = re.compile(r"[A-Za-z0-9._/-]+")
 TONE_LABELS = {"note": "Note", "caution": "Caution"}
@@ -168,38 +165,10 @@ def render_block(block, folder: Path) -> list[str]:
     raise TypeError(f"not a document block: {type(block).__name__}")
 
 
-def unbreakable_length(value: str) -> int:
-    """The longest run of characters in ``value`` that no line break can split (see ``breakable``)."""
-    return max(len(word) if len(word) <= BREAK_LONGER_THAN else BREAK_EVERY for word in one_line(value).split(" "))
-
-
-def column_shares(table: Table) -> list[float]:
-    """Each column's share of ``\\linewidth`` (they add up to 1).
-
-    Shares follow the longest cell (clamped to COLUMN_WEIGHT_BOUNDS), but no column gets less
-    than its longest unbreakable word needs; when those minima alone exceed the line, they are
-    scaled down together.
-    """
-    low, high = COLUMN_WEIGHT_BOUNDS
-    columns = list(zip(table.header, *table.rows))
-    wants = [min(max(max(len(one_line(cell)) for cell in column), low), high) for column in columns]
-    needs = [(max(max(unbreakable_length(cell) for cell in column[1:]), BOLD_WIDTH * unbreakable_length(column[0]))
-              + PADDING_CHARACTERS) / LINE_CHARACTERS for column in columns]
-    if sum(needs) >= 1.0:
-        return [need / sum(needs) for need in needs]
-    held: set[int] = set()
-    while True:  # give held columns their minimum, share the rest in proportion to the others' wants
-        scale = (1.0 - sum(needs[j] for j in held)) / sum(wants[j] for j in range(len(wants)) if j not in held)
-        short = {j for j in range(len(wants)) if j not in held and scale * wants[j] < needs[j]}
-        if not short:
-            return [needs[j] if j in held else scale * wants[j] for j in range(len(wants))]
-        held |= short
-
-
 def column_spec(table: Table) -> str:
     """Ragged-right ``p{}`` columns whose widths, padding included, add up to ``\\linewidth``."""
     return "".join(rf">{{\raggedright\arraybackslash}}p{{\dimexpr {share:.3f}\linewidth-2\tabcolsep\relax}}"
-                   for share in column_shares(table))
+                   for share in column_shares(table, LATEX_MEASURE))
 
 
 def render_table(table: Table) -> list[str]:
