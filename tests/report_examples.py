@@ -35,6 +35,7 @@ HOSTILE = (
     "`code`",
     "~^",
     "*stars* and __under__",
+    "\"double\" 'single' two'' -- dash",
     "A&B 50% $5 #3 a_b {c} ~d ^e \\f <g> |h|",
 )
 HOSTILE_TITLE = "Fit <script>alert(1)</script> & 100% of $x$_1 {#} \\ | [link](x) `tick`"

@@ -14,7 +14,8 @@ relative to the fragment's folder.
 
 Every string from the document is escaped: the ten TeX specials (``\ & % $ # _ { } ~ ^``),
 ``< > |`` (which the default OT1 font encoding would print as other glyphs), ``[ ]`` (read as
-an optional argument after ``\\``), the backtick and the ``--`` and ``''`` ligatures; control
+an optional argument after ``\\``), quotes and the backtick (straight, as typed; ``"`` in the
+typewriter font, the only straight double quote OT1 has) and the ``--`` ligature; control
 characters become ``?``; words longer than ``BREAK_LONGER_THAN`` characters get break points
 (``\hspace{0pt}``, robust in moving arguments such as captions) so they cannot run off the page.
 
@@ -39,7 +40,9 @@ ASCII_ESCAPES = {
     "\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_",
     "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}", "^": r"\textasciicircum{}",
     "<": r"\textless{}", ">": r"\textgreater{}", "|": r"\textbar{}", "[": "{[}", "]": "{]}",
-    "`": r"\textasciigrave{}", '"': r"\textquotedbl{}",
+    "`": r"\textasciigrave{}", "'": r"\textquotesingle{}",
+    # OT1 has no straight double quote and babel may make " active: the typewriter glyph by number
+    '"': r"{\ttfamily\char34}",
 }
 SYMBOL_COMMANDS = {
     "±": r"\ensuremath{\pm}", "×": r"\ensuremath{\times}", "−": r"\ensuremath{-}", "·": r"\ensuremath{\cdot}",
@@ -86,8 +89,8 @@ def escape_word(word: str) -> str:
         following = word[position + 1: position + 2]
         if character in ASCII_ESCAPES:
             out.append(ASCII_ESCAPES[character])
-        elif character in "-'" and following == character:
-            out.append(character + "{}")  # keep -- and '' from becoming a dash and a quote
+        elif character == "-" and following == "-":
+            out.append("-{}")  # keep -- from becoming a dash
         elif character in SYMBOL_COMMANDS:
             out.append(SYMBOL_COMMANDS[character])
         elif ord(character) > 127 and (greek := greek_command(character)) is not None:
