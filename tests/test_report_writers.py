@@ -214,6 +214,13 @@ def test_markdown_links_only_to_files_that_exist_inside_its_folder(tmp_path):
     assert all(target[1:] in anchors for target in targets if target.startswith("#"))
 
 
+def test_markdown_without_a_subtitle_shows_no_stray_emphasis_marks(tmp_path):
+    document = Document(title="t", subtitle=" ", sections=(Section(title="x", anchor="x", blocks=()),))
+    rendered, _ = commonmark(write_markdown(document, tmp_path / "appendix.md").read_text(encoding="utf-8"))
+    # CommonMark shows an empty emphasis "**" as two literal asterisks
+    assert "*" not in rendered.text
+
+
 def test_writers_refuse_a_verdict_word_they_do_not_know(tmp_path):
     table = Table(caption="c", header=("check", "verdict"), rows=(("a", "maybe"),), status_column=1)
     document = Document(title="t", subtitle="s", sections=(Section(title="x", anchor="x", blocks=(table,)),))

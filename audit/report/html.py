@@ -151,7 +151,7 @@ def render_cell(table: Table, column: int, cell: str) -> str:
         return f"<td>{text(cell)}</td>"
     word = status_word(table, cell)
     return (f'<td class="status status-{word.replace(" ", "-")}">'
-            f'<span class="mark" aria-hidden="true">{STATUS_MARKS[word]}</span> {word}</td>')
+            f'<span class="mark" aria-hidden="true">{STATUS_MARKS[word]}</span> {text(word)}</td>')
 
 
 def render_figure(figure: Figure, number: int) -> str:

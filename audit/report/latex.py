@@ -33,8 +33,8 @@ import unicodedata
 from pathlib import Path
 
 from .column_widths import Measure, column_shares
-from .document import Document, Figure, Paragraph, Preformatted, Section, Table
-from .writer_common import linked_figure, numbered_blocks, one_line, section_ids, status_word, without_controls
+from .document import Block, Document, Figure, Paragraph, Preformatted, Section, Table
+from .writer_common import linked_figure, one_line, section_ids, status_word, without_controls
 
 ASCII_ESCAPES = {
     "\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_",
@@ -135,20 +135,20 @@ def render_latex(document: Document, folder: Path) -> str:
     """The fragment for ``document`` as text, figure paths relative to ``folder``."""
     lines = [r"\begin{center}", rf"{{\Large\bfseries {text(document.title)}\par}}", r"\smallskip",
              rf"{{{text(document.subtitle)}\par}}", r"\end{center}"]
-    counters: dict[type, int] = {}
     for section, target in zip(document.sections, section_ids(document)):
-        lines += ["", *render_section(section, target, counters, folder)]
+        lines += ["", *render_section(section, target, folder)]
     return "\n".join(lines) + "\n"
 
 
-def render_section(section: Section, target: str, counters: dict[type, int], folder: Path) -> list[str]:
+def render_section(section: Section, target: str, folder: Path) -> list[str]:
+    """A section; LaTeX numbers it and its tables and figures itself."""
     lines = [rf"\section{{{text(section.title)}}}\label{{sec:{target}}}"]
-    for item in numbered_blocks(section.blocks, counters):
-        lines += ["", *render_block(item.block, folder)]
+    for block in section.blocks:
+        lines += ["", *render_block(block, folder)]
     return lines
 
 
-def render_block(block, folder: Path) -> list[str]:
+def render_block(block: Block, folder: Path) -> list[str]:
     if isinstance(block, Paragraph):
         body = text(block.text)
         if has_long_word(block.text):  # justified lines need stretch that a broken long word lacks
@@ -179,7 +179,7 @@ def render_table(table: Table) -> list[str]:
         if column != table.status_column:
             return text(value)
         word = status_word(table, value)
-        return rf"\textbf{{{word}}}" if word in ("warn", "fail") else word
+        return rf"\textbf{{{text(word)}}}" if word in ("warn", "fail") else text(word)
 
     lines = [r"\begin{table}[htbp]", r"\centering", rf"\caption{{{text(table.caption)}}}",
              r"\small\setlength{\tabcolsep}{4pt}", rf"\begin{{tabular}}{{{column_spec(table)}}}", r"\toprule",

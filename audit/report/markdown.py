@@ -51,7 +51,8 @@ def write_markdown(document: Document, path: Path) -> Path:
 def render_markdown(document: Document, folder: Path) -> str:
     """The Markdown text of ``document`` with figure links relative to ``folder``."""
     ids = section_ids(document)
-    lines = [f"# {text(document.title)}", "", f"*{text(document.subtitle)}*", "", "**Contents**", ""]
+    subtitle = [f"*{text(document.subtitle)}*", ""] if one_line(document.subtitle) else []  # ** alone is text
+    lines = [f"# {text(document.title)}", "", *subtitle, "**Contents**", ""]
     lines += [f"{number}. [{text(section.title)}](#{target})"
               for number, (section, target) in enumerate(zip(document.sections, ids), start=1)]
     counters: dict[type, int] = {}
@@ -100,7 +101,7 @@ def render_table(table: Table, number: int) -> list[str]:
     def row(cells) -> str:
         return "| " + " | ".join(cells) + " |"
 
-    body = [row(status_word(table, cell) if column == table.status_column else text(cell)
+    body = [row(text(status_word(table, cell) if column == table.status_column else cell)
                 for column, cell in enumerate(cells)) for cells in table.rows]
     lines = [f"**Table {number}. {text(table.caption)}**", "", row(text(cell) for cell in table.header),
              row("---" for _ in table.header), *body]
