@@ -6,6 +6,7 @@ from the constructed counts, never copied from the verdict.
 """
 from __future__ import annotations
 
+from pathlib import Path
 from types import SimpleNamespace
 
 import numpy as np
@@ -175,3 +176,9 @@ def test_verdict_section_checks_keys_values_and_order():
     names = [name for name, _, meaning in VerdictSettings.table() if meaning]
     assert len(names) == len(VerdictSettings.table()) == 18
 
+
+def test_readme_lists_every_threshold_with_its_default():
+    # The README is the documentation the verdict's table promises; its rows must match the code.
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    for name, default, _ in VerdictSettings.table():
+        assert f"| `{name}` | {default:g} |" in readme, name
