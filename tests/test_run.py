@@ -17,6 +17,8 @@ from scipy.optimize import least_squares
 import audit
 from audit.cli import main
 from audit.inputs.scenario import load_scenario
+from audit.report.appendix import build_appendix
+from audit.report.document import Table
 from audit.report.run import run_audit
 
 BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
@@ -113,6 +115,28 @@ def test_figures_decode_and_the_sweep_cache_is_reused(quick_run):
         assert matplotlib.image.imread(path).ndim == 3, path
     again = run_audit(BUNDLED, out=out, quick=True)
     assert again.sweep.chunks["computed"] == 0 and again.sweep.chunks["reused"] == again.sweep.chunks["total"] > 0
+
+
+def test_appendix_sections_in_order_with_the_json_numbers(quick_run, reference):
+    _, out, payload = quick_run
+    result = run_audit(BUNDLED, out=out, quick=True)  # the sweep comes from the cache
+    document = build_appendix(result, sorted((out / "figures").iterdir()))
+    assert [section.anchor for section in document.sections] == [
+        "scenario", "model", "fit", "estimates", "verdict", "derivatives", "sweep", "bootstrap", "identifiability",
+        "residuals", "recommendations", "provenance", "cautions"]
+    sections = {section.anchor: section for section in document.sections}
+    assert sections["fit"].blocks[0].png.name == "fit-band.png" and sections["fit"].blocks[0].pdf.is_file()
+    table = next(block for block in sections["estimates"].blocks if isinstance(block, Table))
+    profiles = payload["identifiability"]["profiles"]["parameters"]
+    for row, expected, profile in zip(table.rows, reference.x, profiles):
+        # the table's estimate is scipy's to its 8 digits; its profile interval is the JSON's to 6
+        assert float(row[1]) == pytest.approx(expected, rel=1e-7)
+        low, high = (float(text) for text in row[5].strip("[]").split(","))
+        assert (low, high) == (pytest.approx(profile["lower"], rel=1e-5), pytest.approx(profile["upper"], rel=1e-5))
+    verdict = next(block for block in sections["verdict"].blocks if isinstance(block, Table))
+    assert [row[1] for row in verdict.rows] == [line["status"] for line in payload["verdict"]["checks"]]
+    cautions = " ".join(block.text for block in sections["cautions"].blocks)
+    assert "does not show that the model" in cautions and "qualified, licensed" in cautions
 
 
 def test_wrong_hand_jacobian_fails_the_derivative_check_and_the_run_finishes(tmp_path):

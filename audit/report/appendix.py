@@ -32,7 +32,7 @@ CAUTIONS = (
 #: Caption of each figure, by its file stem's start (the first that matches).
 CAPTIONS = (
     ("fit-band", "The data with the fitted curve and its pointwise confidence band (delta method on the "
-                 "asymptotic covariance)."),
+                 "asymptotic covariance); below, the data minus the curve, with the band around zero."),
     ("derivatives-columns", "Hand-derived partial derivatives against the reference, column by column."),
     ("derivatives-points", "Where the derivatives were compared."),
     ("sweep-outcomes", "How the sweep's runs ended, per step factor."),
