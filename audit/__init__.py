@@ -12,6 +12,8 @@ audit`` stays fast):
     bootstrap_scenario(scenario)            bootstrap intervals next to asymptotic ones
     identify_scenario(scenario)             weak directions, collinearity, profile likelihood
     check_folder(folder)                    the solver against the NIST StRD certified values
+    run_audit(path, quick=..., out=...)      every stage and the verdict -> AuditResult (.verdict,
+                                            .to_dict(), .write(folder), shown as HTML in Jupyter)
     Outcome, InputError, ParallelPlan       outcome codes, bad-input error, parallel settings
 """
 from __future__ import annotations
@@ -31,6 +33,7 @@ _WHERE = {
     "bootstrap_scenario": "audit.uncertainty.bootstrap", "run_bootstrap": "audit.uncertainty.bootstrap",
     "identify_scenario": "audit.identifiability.analysis",
     "check_folder": "audit.validation.check",
+    "run_audit": "audit.report.run", "AuditResult": "audit.report.result",
     "ParallelPlan": "audit.parallel.plan",
     "InputError": "audit.errors",
 }

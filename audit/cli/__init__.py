@@ -9,10 +9,10 @@ import argparse
 import sys
 
 from .. import __version__
-from . import bootstrap, check, derivatives, fit, identify, strd, sweep
+from . import bootstrap, check, derivatives, fit, identify, run, strd, sweep
 from .common import run_handler
 
-COMMANDS = (check, fit, strd, sweep, derivatives, bootstrap, identify)
+COMMANDS = (check, run, fit, strd, sweep, derivatives, bootstrap, identify)
 
 DESCRIPTION = """\
 fitaudit audits a nonlinear least-squares fit before you trust, publish or hand it over:
@@ -20,7 +20,7 @@ does it depend on the starting guess or the step factor, are the hand-derived de
 right, how uncertain are the parameters, and can the data determine them at all?
 
 A scenario is a folder with scenario.toml, a CSV data file and a model (see README.md).
-Start with:  fitaudit check scenarios/probe-cooling
+Start with:  fitaudit run scenarios/probe-cooling --quick
 """
 
 

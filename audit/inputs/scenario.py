@@ -21,7 +21,7 @@ from .data_file import read_measurements
 from .formula import check_formula, compile_formula, formula_problem_parts
 from .model_file import describe_model_error, load_model_module
 from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, IdentifiabilitySettings, SolverSettings,
-                       SweepSettings, nearest, read_section, reject_unknown)
+                       SweepSettings, VerdictSettings, nearest, read_section, reject_unknown)
 
 SCENARIO_FILE = "scenario.toml"
 TOP_KEYS = ("title", "description", "data", "model", "parameters", *SECTIONS)
@@ -82,6 +82,7 @@ class Scenario:
     fingerprint: str
     model_digest: str = ""
     warnings: tuple[str, ...] = field(default=())
+    verdict: VerdictSettings = field(default_factory=VerdictSettings)
 
     @property
     def names(self) -> tuple[str, ...]:

@@ -1,4 +1,4 @@
-"""The optional sections of ``scenario.toml``: solver, sweep, bootstrap, identifiability, derivatives.
+"""The optional sections of ``scenario.toml``: solver, sweep, bootstrap, identifiability, derivatives, verdict.
 
 Each section is a frozen dataclass whose fields are the valid keys, with their defaults. Reading
 a section checks every key and value and raises an ``InputError`` that names the file, the
@@ -9,7 +9,7 @@ from __future__ import annotations
 import dataclasses
 import difflib
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 from ..errors import InputError
@@ -83,6 +83,65 @@ class DerivativeSettings:
     seed: int = DEFAULT_SEED
 
 
+def _threshold(default: float, meaning: str) -> float:
+    return field(default=default, metadata={"meaning": meaning})
+
+
+@dataclass(frozen=True)
+class VerdictSettings:
+    """[verdict]: the thresholds of the verdict's checks, the one table of them (``report.verdict``).
+
+    Each field is a threshold: its default and, in the field's metadata, what it means. Shares
+    are fractions of starts or refits (0 to 1); a check warns at its ``*_warn`` value and fails
+    at its ``*_fail`` value.
+    """
+
+    same_ssr_relative: float = _threshold(
+        1e-6, "a fit counts as reaching the best one when its SSR exceeds the best SSR by at most this share")
+    basin_share_warn: float = _threshold(
+        0.5, "share of sweep starts reaching the best fit at the recommended step factor below which the check warns")
+    basin_share_fail: float = _threshold(
+        0.1, "share of sweep starts reaching the best fit at the recommended step factor below which it fails")
+    oscillation_share_warn: float = _threshold(
+        0.05, "share of sweep starts oscillating at the recommended step factor above which the check warns")
+    oscillation_share_fail: float = _threshold(
+        0.25, "share of sweep starts oscillating at the recommended step factor above which it fails")
+    divergence_share_warn: float = _threshold(
+        0.05, "share of sweep starts diverging at the recommended step factor above which the check warns")
+    divergence_share_fail: float = _threshold(
+        0.25, "share of sweep starts diverging at the recommended step factor above which it fails")
+    rival_ssr_ratio: float = _threshold(
+        1.1, "another optimum (not the best fit's curve) with SSR at most this multiple of the best SSR warns: "
+             "the data barely prefer the best fit")
+    bootstrap_failure_warn: float = _threshold(
+        0.025, "share of bootstrap refits not reaching the best fit's solution above which the check warns "
+               "(one tail of a 95 % interval)")
+    bootstrap_failure_fail: float = _threshold(
+        0.1, "share of bootstrap refits not reaching the best fit's solution above which it fails")
+    interval_ratio_warn: float = _threshold(
+        1.5, "bootstrap or profile interval wider or narrower than the asymptotic one by more than this factor warns")
+    interval_ratio_fail: float = _threshold(
+        3.0, "bootstrap or profile interval wider or narrower than the asymptotic one by more than this factor fails")
+    condition_warn: float = _threshold(
+        30.0, "condition number of the column-scaled Jacobian above which the check warns (Belsley's 'moderate "
+              "to strong' collinearity)")
+    condition_fail: float = _threshold(
+        1000.0, "condition number of the column-scaled Jacobian above which it fails")
+    correlation_warn: float = _threshold(
+        0.95, "largest |correlation| between two parameter estimates above which the check warns")
+    correlation_fail: float = _threshold(
+        0.999, "largest |correlation| between two parameter estimates above which it fails")
+    residual_warn_level: float = _threshold(
+        0.05, "p-value of a residual check below which it warns")
+    residual_fail_level: float = _threshold(
+        0.001, "p-value of a residual check below which it fails")
+
+    @classmethod
+    def table(cls) -> list[tuple[str, float, str]]:
+        """(name, default, meaning) of every threshold, in order: the table the README shows."""
+        return [(item.name, item.default, item.metadata["meaning"]) for item in dataclasses.fields(cls)]
+
+
 CHOICES: dict[tuple[str, str], tuple[str, ...]] = {
     ("solver", "method"): ("gn", "lm"),
     ("sweep", "design"): ("grid", "sobol", "lhs"),
@@ -96,6 +155,7 @@ SECTIONS: dict[str, type] = {
     "bootstrap": BootstrapSettings,
     "identifiability": IdentifiabilitySettings,
     "derivatives": DerivativeSettings,
+    "verdict": VerdictSettings,
 }
 
 
@@ -205,10 +265,28 @@ LIMITS: dict[tuple[str, str], tuple[Any, str]] = {
     ("identifiability", "seed"): _SEED,
     ("derivatives", "points"): _between(1, MOST_DERIVATIVE_POINTS),
     ("derivatives", "seed"): _SEED,
+    **{("verdict", item.name): ((lambda v: 0 <= v <= 1), "must lie between 0 and 1")
+       for item in dataclasses.fields(VerdictSettings) if "share" in item.name or "correlation" in item.name
+       or item.name.startswith("residual_")},
+    **{("verdict", item.name): ((lambda v: v >= 1), "must be at least 1")
+       for item in dataclasses.fields(VerdictSettings) if "ratio" in item.name or "condition" in item.name},
+    ("verdict", "same_ssr_relative"): (lambda v: 0 <= v < 1, "must lie in [0, 1)"),
 }
+#: Verdict thresholds that come in pairs: (warn, fail, True when fail lies above warn).
+VERDICT_PAIRS = (("basin_share", False), ("oscillation_share", True), ("divergence_share", True),
+                 ("bootstrap_failure", True), ("interval_ratio", True), ("condition", True),
+                 ("correlation", True), ("residual", False))
 
 
 def _check_ranges(section: str, settings: Any, where: str) -> None:
     for (limited_section, key), (test, message) in LIMITS.items():
         if limited_section == section and not test(getattr(settings, key)):
             raise InputError(f"{where} {key}: {message}, got {getattr(settings, key)!r}")
+    if section == "verdict":
+        for stem, rising in VERDICT_PAIRS:
+            suffix = "_level" if stem == "residual" else ""
+            warn, fail = f"{stem}_warn{suffix}", f"{stem}_fail{suffix}"
+            low, high = (warn, fail) if rising else (fail, warn)
+            if getattr(settings, low) > getattr(settings, high):
+                raise InputError(f"{where} {fail}: must not be {'below' if rising else 'above'} {warn} "
+                                 f"({getattr(settings, fail)!r} vs {getattr(settings, warn)!r})")

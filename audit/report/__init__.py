@@ -1,5 +1,7 @@
-"""The robustness appendix: the verdict with its reasons, and writers that render one document
-to HTML, Markdown and LaTeX (with the audit's JSON beside them)."""
+"""The whole audit and its appendix: ``run.run_audit`` drives every stage and returns an
+``AuditResult``; ``verdict`` judges the stage results against one table of thresholds;
+``appendix`` turns them into one ``Document``, which writers render to HTML, Markdown and LaTeX
+(with the audit's JSON beside them)."""
 from .document import Document, Figure, Paragraph, Preformatted, Section, Table
 from .html import write_html
 from .latex import write_latex
