@@ -58,9 +58,9 @@ def test_fit_table_and_not_converged_exit_1(capsys):
     status, out, _ = run(capsys, "fit", BUNDLED)
     assert status == 0 and "largest rel. change" in out and "estimates" in out and "correlation" in out
     # tau = 500 with a full step overshoots: the run leaves the basin and does not converge.
-    status, out, _ = run(capsys, "fit", BUNDLED, "--start", "tau=500", "--step-factor", "1")
+    status, out, _ = run(capsys, "fit", BUNDLED, "--start", "tau=500", "--step-factors", "1")
     assert status == 1 and "converged" not in out.split("outcome:")[1].split("\n")[0]
-    assert "next: a smaller --step-factor" in out
+    assert "next: a smaller --step-factors" in out
 
 
 def test_fit_takes_every_start_override_whether_listed_or_repeated(capsys):
@@ -75,7 +75,7 @@ def test_fit_takes_every_start_override_whether_listed_or_repeated(capsys):
     (["--start", "tua=3"], "did you mean 'tau'"),
     (["--start", "tau"], "expected NAME=VALUE"),
     (["--start", "tau=abc"], "not a number"),
-    (["--step-factor", "2"], "must lie in (0, 1]"),
+    (["--step-factors", "2"], "must lie in (0, 1]"),
 ])
 def test_fit_bad_options_exit_2(capsys, argv, fragment):
     status, _, err = run(capsys, "fit", BUNDLED, *argv)

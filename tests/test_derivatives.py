@@ -346,14 +346,14 @@ def test_result_is_strict_json_and_figures_are_written(tmp_path):
 
 
 def test_command_exit_statuses_and_json(tmp_path, capsys):
-    assert main(["derivatives", str(BUNDLED), "--points", "3"]) == 0
+    assert main(["derivatives", str(BUNDLED), "--check-points", "3", "-o", str(tmp_path / "ok")]) == 0
     capsys.readouterr()
     planted = planted_copy(tmp_path, CORRECT_TAU, f"-{CORRECT_TAU}")
-    assert main(["derivatives", str(planted), "--points", "3", "--json", "-o", str(tmp_path / "out")]) == 1
+    assert main(["derivatives", str(planted), "--check-points", "3", "--json", "-o", str(tmp_path / "out")]) == 1
     payload = json.loads(capsys.readouterr().out)
     assert [column["verdict"] for column in payload["columns"]] == ["agrees", "agrees", "wrong"]
     assert (tmp_path / "out" / "figures" / "derivatives-columns.png").is_file()
-    assert main(["derivatives", str(BUNDLED), "--points", "-1"]) == 2
+    assert main(["derivatives", str(BUNDLED), "--check-points", "-1"]) == 2
     assert main(["derivatives", str(tmp_path / "missing")]) == 2
 
 
@@ -362,7 +362,7 @@ def test_without_a_hand_derived_jacobian_there_is_nothing_to_check(tmp_path, cap
     shutil.copytree(BUNDLED, folder)
     toml = folder / "scenario.toml"
     toml.write_text(re.sub(r'(?m)^jacobian = "jacobian"\n', "", toml.read_text()))
-    assert main(["derivatives", str(folder), "--points", "3"]) == 0
+    assert main(["derivatives", str(folder), "--check-points", "3", "-o", str(tmp_path / "out")]) == 0
     text = capsys.readouterr().out
     assert "nothing to check" in text and "digits" in text
     audit = audit_derivatives(load_scenario(folder), count=3)

@@ -188,13 +188,13 @@ def test_cli_table_marks_the_precision_limited_problem(tmp_path, nist_dir, capsy
     shown = capsys.readouterr().out
     assert "Lanczos1*" in shown and "* Lanczos1: double precision resolves only" in shown
     assert "passed: 3 of 3 from Start 1, 3 of 3 from Start 2" in shown
-    assert main(["strd", str(tmp_path), "--method", "gn", "--step-factor", "1", "0.5"]) in (0, 1)
+    assert main(["strd", str(tmp_path), "--solver", "gn", "--step-factors", "1,0.5"]) in (0, 1)
     assert "factors reaching it" in capsys.readouterr().out
 
 
 def test_cli_json_has_every_run(tmp_path, nist_dir, capsys):
     (tmp_path / "Misra1a.dat").symlink_to(nist_dir / "Misra1a.dat")
-    assert main(["strd", str(tmp_path), "--json", "--step-factor", "1", "--step-factor", "0.5"]) == 0
+    assert main(["strd", str(tmp_path), "--json", "--step-factors", "1,0.5"]) == 0
     payload = json.loads(capsys.readouterr().out)
     assert payload["counts"] == {"problems": 1, "passed_start1": 1, "passed_start2": 1}
     problem = payload["problems"][0]
@@ -209,7 +209,7 @@ def test_cli_json_has_every_run(tmp_path, nist_dir, capsys):
 @pytest.mark.parametrize("arguments, message", [
     (["strd", "/no/such/folder"], "folder not found"),
     (["strd", "{empty}"], "no .dat files"),
-    (["strd", "{nist}", "--step-factor", "1.5"], "must lie in (0, 1]"),
+    (["strd", "{nist}", "--step-factors", "1.5"], "must lie in (0, 1]"),
     (["strd", "{nist}", "--tolerance", "0"], "must be positive"),
     (["strd", "{broken}"], "not a NIST StRD nonlinear regression file"),
 ])
