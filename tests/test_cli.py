@@ -58,9 +58,9 @@ def test_fit_table_and_not_converged_exit_1(capsys):
     status, out, _ = run(capsys, "fit", BUNDLED)
     assert status == 0 and "largest rel. change" in out and "estimates" in out and "correlation" in out
     # tau = 500 with a full step overshoots: the run leaves the basin and does not converge.
-    status, out, _ = run(capsys, "fit", BUNDLED, "--start", "tau=500", "--step-factor", "1")
+    status, out, _ = run(capsys, "fit", BUNDLED, "--start", "tau=500", "--step-factors", "1")
     assert status == 1 and "converged" not in out.split("outcome:")[1].split("\n")[0]
-    assert "next: a smaller --step-factor" in out
+    assert "next: a smaller --step-factors" in out
 
 
 def test_fit_takes_every_start_override_whether_listed_or_repeated(capsys):
@@ -75,7 +75,7 @@ def test_fit_takes_every_start_override_whether_listed_or_repeated(capsys):
     (["--start", "tua=3"], "did you mean 'tau'"),
     (["--start", "tau"], "expected NAME=VALUE"),
     (["--start", "tau=abc"], "not a number"),
-    (["--step-factor", "2"], "must lie in (0, 1]"),
+    (["--step-factors", "2"], "must lie in (0, 1]"),
 ])
 def test_fit_bad_options_exit_2(capsys, argv, fragment):
     status, _, err = run(capsys, "fit", BUNDLED, *argv)
@@ -87,3 +87,21 @@ def test_python_dash_m_and_help_texts():
     assert done.returncode == 0 and "step factor" in done.stdout and "examples:" in done.stdout
     done = subprocess.run([sys.executable, "-m", "audit"], capture_output=True, text=True)
     assert done.returncode == 2 and "commands" in done.stdout
+
+
+def test_version_is_the_packages(capsys):
+    # Reference: the version written in pyproject.toml, read with tomllib.
+    import tomllib
+    declared = tomllib.loads((Path(BUNDLED).parents[1] / "pyproject.toml").read_text())["project"]["version"]
+    with pytest.raises(SystemExit) as stop:
+        main(["--version"])
+    assert stop.value.code == 0 and capsys.readouterr().out.strip() == f"fitaudit {declared}"
+
+
+def test_dask_backend_needs_a_reachable_scheduler(capsys, tmp_path):
+    assert main(["bootstrap", BUNDLED, "--backend", "dask", "-o", str(tmp_path)]) == 2
+    assert "needs the address of a running scheduler (--scheduler ADDRESS)" in capsys.readouterr().err
+    # Port 9 on the loopback address has no scheduler: the connection is refused until the 10 s timeout.
+    assert main(["sweep", BUNDLED, "--backend", "dask", "--scheduler", "tcp://127.0.0.1:9", "--starts", "16",
+                 "-o", str(tmp_path)]) == 2
+    assert "cannot reach the Dask scheduler at tcp://127.0.0.1:9" in capsys.readouterr().err

@@ -304,7 +304,7 @@ def test_profiles_are_the_same_whatever_runs_them():
 
 # ---------------------------------------------------------------- command line
 def test_identify_command_writes_json_and_figures(tmp_path, capsys):
-    status = main(["identify", str(BUNDLED), "--points", "15", "-o", str(tmp_path), "--json"])
+    status = main(["identify", str(BUNDLED), "--profile-points", "15", "--jobs", "1", "-o", str(tmp_path), "--json"])
     printed = json.loads(capsys.readouterr().out)
     assert status == 0
     saved = json.loads((tmp_path / "identifiability.json").read_text())
@@ -315,7 +315,7 @@ def test_identify_command_writes_json_and_figures(tmp_path, capsys):
         "identifiability-weak-directions.png", "identifiability-collinearity.png"}
 
 
-def test_identify_command_flags_a_product_model_and_rejects_bad_points(write_scenario, capsys):
+def test_identify_command_flags_a_product_model_and_rejects_bad_points(write_scenario, capsys, tmp_path):
     folder = write_scenario(
         """
         [data]
@@ -334,11 +334,11 @@ def test_identify_command_flags_a_product_model_and_rejects_bad_points(write_sce
         """,
         data="x,y\n" + "".join(f"{x},{2.0 * x + 0.1 * (-1) ** x}\n" for x in range(1, 13)),
     )
-    assert main(["identify", str(folder)]) == 1
+    assert main(["identify", str(folder), "--jobs", "1", "-o", str(tmp_path)]) == 1
     shown = capsys.readouterr().out
     assert "structurally non-identifiable" in shown
-    assert main(["identify", str(folder), "--points", "3"]) == 2
-    assert "--points 3" in capsys.readouterr().err
+    assert main(["identify", str(folder), "--profile-points", "3", "-o", str(tmp_path)]) == 2
+    assert "--profile-points 3" in capsys.readouterr().err
 
 
 def best_fit(problem: Problem, start, solver: SolverSettings) -> tuple[np.ndarray, str]:

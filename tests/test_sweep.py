@@ -250,7 +250,7 @@ def test_figures_are_written(twin_folder, tmp_path):
 
 def test_command_writes_json_and_figures(twin_folder, tmp_path, capsys):
     out = tmp_path / "out"
-    status = main(["sweep", str(twin_folder), "-o", str(out), "--points", "256", "--step-factors", "1,0.6",
+    status = main(["sweep", str(twin_folder), "-o", str(out), "--starts", "256", "--step-factors", "1,0.6",
                    "--jobs", "1", "--resolution", "11", "--json"])
     assert status == 0  # the scenario's start lies inside the safe region (derivation above)
     payload = json.loads(capsys.readouterr().out)
@@ -271,7 +271,7 @@ def test_command_rejects_a_parameter_without_range(write_scenario, capsys):
     assert "scenario.toml" in message and "b: the sweep needs a range" in message
 
 
-@pytest.mark.parametrize("option", [["--step-factors", "1,1.5"], ["--points", "0"], ["--methods", "gm"],
+@pytest.mark.parametrize("option", [["--step-factors", "1,1.5"], ["--starts", "0"], ["--solver", "gm"],
                                     ["--resolution", "1"]])
 def test_command_rejects_bad_options(twin_folder, capsys, option):
     assert main(["sweep", str(twin_folder), "--jobs", "1", *option]) == 2

@@ -108,7 +108,7 @@ def test_a_sweep_where_the_jacobian_never_has_full_rank_reports_rank_loss(produc
     assert payload["solutions"] == [] and payload["recommendation"] is None
     assert payload["next_step"] == result.next_step
     assert (out / "figures" / "sweep-outcomes.png").is_file()
-    status = main(["sweep", str(product_folder), "-o", str(tmp_path / "lm"), "--jobs", "1", "--methods", "lm"])
+    status = main(["sweep", str(product_folder), "-o", str(tmp_path / "lm"), "--jobs", "1", "--solver", "lm"])
     assert status == 1
     assert "identify" in capsys.readouterr().out
 

@@ -13,8 +13,8 @@ from ..uncertainty.bootstrap import BootstrapResult, bootstrap_scenario, total_r
 from ..uncertainty.replicates import FATE_MEANINGS
 from ..uncertainty.resampling import SCHEMES, WILD_MULTIPLIERS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
-                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
-                     show_audited_fit, sweep_reference, write_results)
+                     add_scenario_argument, add_step_factors_option, number, one_step_factor, open_scenario, out,
+                     parallel_plan, print_json, progress_bar, show_audited_fit, sweep_reference, write_results)
 
 DESCRIPTION = """\
 How uncertain are the fitted parameters, and can the linearised standard errors be trusted?
@@ -48,8 +48,8 @@ was flagged, refits were left out or a lower SSR than the audited one is known, 
 
 EXAMPLES = """\
   fitaudit bootstrap scenarios/probe-cooling
-  fitaudit bootstrap scenarios/probe-cooling --method wild --wild-weights mammen --samples 5000
-  fitaudit bootstrap scenarios/probe-cooling --method pairs --jobs 2 -o audit-out --json
+  fitaudit bootstrap scenarios/probe-cooling --resampling wild --wild-weights mammen --samples 5000
+  fitaudit bootstrap scenarios/probe-cooling --resampling pairs --jobs 2 -o audit-out --json
   fitaudit bootstrap scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
 
 
@@ -57,7 +57,7 @@ def register(subparsers) -> None:
     parser = add_command(subparsers, "bootstrap", "bootstrap intervals beside the asymptotic ones, with failed refits",
                          DESCRIPTION, EXAMPLES, run)
     add_scenario_argument(parser)
-    parser.add_argument("--method", choices=SCHEMES,
+    parser.add_argument("--resampling", choices=SCHEMES,
                         help="resampling scheme (default: the scenario's [bootstrap] method)")
     parser.add_argument("--samples", type=int, metavar="N",
                         help="number of bootstrap replicates (default: the scenario's [bootstrap] samples)")
@@ -67,8 +67,7 @@ def register(subparsers) -> None:
     parser.add_argument("--leverage-adjusted", action=argparse.BooleanOptionalAction, default=None,
                         help="divide residuals by sqrt(1 - leverage) before resampling (residual and wild; "
                              "default: the scenario's [bootstrap] leverage_adjusted)")
-    parser.add_argument("--step-factor", type=float, metavar="A",
-                        help="step factor of the refits, in (0, 1] (default: the first of the scenario's step_factors)")
+    add_step_factors_option(parser, "the first of the scenario's [solver] step_factors", several=False)
     add_parallel_options(parser)
     add_output_option(parser, "bootstrap.json and the figures")
     add_json_option(parser)
@@ -78,8 +77,7 @@ def run(args: argparse.Namespace) -> int:
     scenario = open_scenario(args)
     if args.samples is not None and args.samples < 2:
         raise InputError(f"--samples {args.samples}: must be at least 2")
-    if args.step_factor is not None and not 0 < args.step_factor <= 1:
-        raise InputError(f"--step-factor {args.step_factor}: must lie in (0, 1]")
+    step_factor = one_step_factor(args)
     plan = parallel_plan(args)
     samples = scenario.bootstrap.samples if args.samples is None else args.samples
     reference = sweep_reference(scenario, args.out)
@@ -91,7 +89,7 @@ def run(args: argparse.Namespace) -> int:
             done = bar.tasks[0].completed + count
             bar.update(task, advance=count, rate=f"{done / max(time.perf_counter() - started, 1e-9):,.0f}/s")
 
-        result = bootstrap_scenario(scenario, method=args.method, samples=samples, step_factor=args.step_factor,
+        result = bootstrap_scenario(scenario, method=args.resampling, samples=samples, step_factor=step_factor,
                                     wild_multipliers=args.wild_weights, leverage_adjusted=args.leverage_adjusted,
                                     reference=reference, plan=plan, progress=advance)
     folder = Path(args.out)

@@ -15,6 +15,7 @@ from rich.console import Console
 from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
+from ..engine.batch import METHODS
 from ..engine.best_fit import FROM_START, KnownFit, SweepReference
 from ..errors import InputError
 from ..inputs.scenario import Scenario, load_scenario, solutions_fingerprint
@@ -50,9 +51,10 @@ def shown(text: object) -> str:
 def add_command(subparsers, name: str, summary: str, description: str, examples: str,
                 handler: Callable[[argparse.Namespace], int]) -> argparse.ArgumentParser:
     """A sub-command parser with a newcomer-friendly description and worked examples."""
+    # No abbreviations: an option has one spelling, so a removed one fails instead of matching a prefix.
     parser = subparsers.add_parser(
         name, help=summary, description=description, epilog=f"examples:\n{examples}",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+        formatter_class=argparse.RawDescriptionHelpFormatter, allow_abbrev=False)
     parser.set_defaults(handler=handler)
     return parser
 
@@ -73,11 +75,16 @@ DEFAULT_OUT = "fitaudit-output"
 SWEEP_FILE = "sweep.json"
 
 
-def add_parallel_options(parser: argparse.ArgumentParser, default_jobs: int = -1, dask: bool = True) -> None:
+#: --jobs when not given, in every command: every core. Starting worker processes costs about a
+#: second, so a small problem runs faster with --jobs 1; a large sweep or bootstrap gains a core's worth.
+DEFAULT_JOBS = -1
+
+
+def add_parallel_options(parser: argparse.ArgumentParser, dask: bool = True) -> None:
     """--jobs, and with ``dask`` also --backend and --scheduler."""
-    every = "every core" if default_jobs == -1 else f"{default_jobs}"
-    parser.add_argument("--jobs", type=int, default=default_jobs, metavar="N",
-                        help=f"worker processes on this machine, -1 for every core (default: {every})")
+    parser.add_argument("--jobs", type=int, default=DEFAULT_JOBS, metavar="N",
+                        help="worker processes on this machine, -1 for every core (default: -1; --jobs 1 is "
+                             "faster where the work takes less than starting the workers, about a second)")
     if dask:
         parser.add_argument("--backend", choices=BACKENDS, default="processes",
                             help="processes (this machine) or dask (a running Dask cluster, see --scheduler)")
@@ -91,10 +98,59 @@ def parallel_plan(args: argparse.Namespace) -> ParallelPlan:
                         scheduler=getattr(args, "scheduler", None))
 
 
-def add_output_option(parser: argparse.ArgumentParser, what: str, default: str | None = DEFAULT_OUT) -> None:
+def add_output_option(parser: argparse.ArgumentParser, what: str) -> None:
     """-o/--out: the folder for ``what`` (e.g. "sweep.json, the figures and the chunk cache")."""
-    shown = f"default: {default}" if default else "default: nothing is written"
-    parser.add_argument("-o", "--out", default=default, metavar="OUT", help=f"folder for {what} ({shown})")
+    parser.add_argument("-o", "--out", default=DEFAULT_OUT, metavar="OUT",
+                        help=f"folder for {what} (default: {DEFAULT_OUT})")
+
+
+def add_solver_option(parser: argparse.ArgumentParser, default: str, *, several: bool = False) -> None:
+    """--solver: gn or lm; with ``several``, a comma-separated list of them (e.g. gn,lm)."""
+    if several:
+        parser.add_argument("--solver", type=comma_words, metavar="gn,lm",
+                            help=f"solvers to run, comma-separated: gn (Gauss-Newton), lm (Levenberg-Marquardt) "
+                                 f"or gn,lm (default: {default})")
+    else:
+        parser.add_argument("--solver", choices=METHODS,
+                            help=f"gn (Gauss-Newton with step factor) or lm (Levenberg-Marquardt) (default: {default})")
+
+
+def add_step_factors_option(parser: argparse.ArgumentParser, default: str, *, several: bool = True) -> None:
+    """--step-factors A,B,...: step factors in (0, 1]; without ``several`` exactly one value."""
+    what = "step factors in (0, 1], comma-separated, e.g. 1,0.5,0.25" if several else \
+        "the step factor in (0, 1]; one value, as this command runs one setting"
+    parser.add_argument("--step-factors", type=comma_numbers, metavar="A,B,..." if several else "A",
+                        help=f"{what} (default: {default})")
+
+
+def comma_numbers(text: str) -> tuple[float, ...]:
+    """``"1,0.5"`` -> (1.0, 0.5); argparse reports anything else as a usage error."""
+    try:
+        return tuple(float(item) for item in text.split(",") if item.strip())
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected numbers separated by commas, got {text!r}") from None
+
+
+def comma_words(text: str) -> tuple[str, ...]:
+    """``"gn, lm"`` -> ("gn", "lm")."""
+    return tuple(item.strip() for item in text.split(",") if item.strip())
+
+
+def one_step_factor(args: argparse.Namespace) -> float | None:
+    """The single --step-factors value of a command that runs one step factor (None when not given).
+
+    Raises:
+        InputError: for several values or one outside (0, 1].
+    """
+    if args.step_factors is None:
+        return None
+    if len(args.step_factors) != 1:
+        raise InputError(f"--step-factors {','.join(f'{a:g}' for a in args.step_factors)}: this command runs one "
+                         "step factor; give one value ('fitaudit sweep' compares several)")
+    factor = args.step_factors[0]
+    if not 0 < factor <= 1:
+        raise InputError(f"--step-factors {factor:g}: must lie in (0, 1]")
+    return factor
 
 
 def write_results(result, folder: Path, name: str, write_figures: Callable[[object, Path], list[Path]]) -> list[Path]:

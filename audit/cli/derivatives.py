@@ -22,9 +22,9 @@ They are compared, observation by observation, with high-accuracy numeric deriva
 (numdifftools: central differences over shrinking steps with Richardson extrapolation and an
 error estimate) and, when [model] formula states the model's formula, with the exact symbolic
 ones. The check points are the best known fit (the sweep's in-range reference when
-OUT/sweep.json, default OUT fitaudit-output, holds a sweep of the same problem, else the best
-fit from the start), the scenario's start and N points drawn inside the parameter ranges (seeded
-by [derivatives] seed). A column is called wrong only where the difference is far beyond the
+OUT/sweep.json holds a sweep of the same problem, else the best fit from the start), the
+scenario's start and --check-points N points drawn inside the parameter ranges (seeded by
+[derivatives] seed). A column is called wrong only where the difference is far beyond the
 numeric error bound and above a millionth of the column's size.
 
 For each parameter the table shows the largest relative error (largest |difference| divided by
@@ -46,7 +46,7 @@ differences are adequate), 1 a mistake was found (or the central differences are
 
 EXAMPLES = """\
   fitaudit derivatives scenarios/probe-cooling
-  fitaudit derivatives scenarios/probe-cooling --points 50 -o audit-out
+  fitaudit derivatives scenarios/probe-cooling --check-points 50 -o audit-out
   fitaudit derivatives my-scenario --json > derivatives.json"""
 
 
@@ -54,18 +54,17 @@ def register(subparsers) -> None:
     parser = add_command(subparsers, "derivatives", "check hand-derived partial derivatives against numeric ones",
                          DESCRIPTION, EXAMPLES, run)
     add_scenario_argument(parser)
-    parser.add_argument("--points", type=int, metavar="N",
+    parser.add_argument("--check-points", type=int, metavar="N",
                         help="check points drawn inside the parameter ranges, besides the best fit and the start "
                              "(default: the scenario's [derivatives] points)")
-    add_output_option(parser, "derivatives.json and the figures (sweep.json is read from OUT, "
-                              "else from fitaudit-output)", default=None)
+    add_output_option(parser, "derivatives.json and the figures; the sweep's sweep.json is read from there")
     add_json_option(parser)
 
 
 def run(args: argparse.Namespace) -> int:
     scenario = open_scenario(args)
-    if args.points is not None and args.points < 0:
-        raise InputError(f"--points {args.points}: must be 0 or more")
+    if args.check_points is not None and args.check_points < 0:
+        raise InputError(f"--check-points {args.check_points}: must be 0 or more")
     reference = sweep_reference(scenario, args.out)
     stages = ["best fit", "numeric derivatives", "comparison", "consequences"]
     with progress_bar("derivative audit", disable=args.json) as bar:
@@ -74,9 +73,9 @@ def run(args: argparse.Namespace) -> int:
         def advance(stage: str) -> None:
             bar.update(task, completed=stages.index(stage), rate=stage)
 
-        result = audit_derivatives(scenario, args.points, progress=advance, reference=reference)
+        result = audit_derivatives(scenario, args.check_points, progress=advance, reference=reference)
         bar.update(task, completed=len(stages), rate="done")
-    files = write_results(result, Path(args.out), "derivatives", write_figures) if args.out else []
+    files = write_results(result, Path(args.out), "derivatives", write_figures)
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:

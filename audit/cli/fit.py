@@ -6,12 +6,11 @@ import argparse
 import numpy as np
 from rich.table import Table
 
-from ..engine.batch import METHODS
 from ..engine.single_fit import SingleFit, fit_once
 from ..errors import InputError
 from ..inputs.settings import nearest
-from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario,
-                     out, print_json)
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, add_solver_option,
+                     add_step_factors_option, number, one_step_factor, open_scenario, out, print_json)
 
 DESCRIPTION = """\
 Fit the scenario's model once, from its starting values, by iterated linearisation, and show
@@ -28,18 +27,16 @@ Exit status: 0 converged, 1 did not converge, 2 bad input."""
 
 EXAMPLES = """\
   fitaudit fit scenarios/probe-cooling
-  fitaudit fit scenarios/probe-cooling --step-factor 0.5 --start tau=300
-  fitaudit fit scenarios/probe-cooling --method lm --json"""
+  fitaudit fit scenarios/probe-cooling --step-factors 0.5 --start tau=300
+  fitaudit fit scenarios/probe-cooling --solver lm --json"""
 
 
 def register(subparsers) -> None:
     parser = add_command(subparsers, "fit", "fit once from the start and show every iteration",
                          DESCRIPTION, EXAMPLES, run)
     add_scenario_argument(parser)
-    parser.add_argument("--step-factor", type=float, metavar="A",
-                        help="step factor in (0, 1] (default: the first of the scenario's step_factors)")
-    parser.add_argument("--method", choices=METHODS, help="gn (Gauss-Newton) or lm (Levenberg-Marquardt); "
-                        "default: the scenario's [solver] method")
+    add_step_factors_option(parser, "the first of the scenario's [solver] step_factors", several=False)
+    add_solver_option(parser, "the scenario's [solver] method")
     parser.add_argument("--start", nargs="+", action="extend", default=[], metavar="NAME=VALUE",
                         help="override starting values, e.g. --start tau=300 dT=50 (the option may also be repeated)")
     add_json_option(parser)
@@ -68,11 +65,10 @@ def starting_values(names: tuple[str, ...], start: np.ndarray, overrides: list[s
 def run(args: argparse.Namespace) -> int:
     scenario = open_scenario(args)
     solver = scenario.solver
-    step_factor = solver.step_factors[0] if args.step_factor is None else args.step_factor
-    if not 0 < step_factor <= 1:
-        raise InputError(f"--step-factor {step_factor}: must lie in (0, 1]")
+    chosen = one_step_factor(args)
+    step_factor = solver.step_factors[0] if chosen is None else chosen
     start = starting_values(scenario.names, scenario.start, args.start)
-    fit = fit_once(scenario.problem, start, step_factor=step_factor, method=args.method or solver.method,
+    fit = fit_once(scenario.problem, start, step_factor=step_factor, method=args.solver or solver.method,
                    tol=solver.tolerance, max_iter=solver.max_iterations,
                    confidence=scenario.bootstrap.confidence)
     if args.json:
@@ -80,7 +76,7 @@ def run(args: argparse.Namespace) -> int:
     else:
         show(fit)
         if not fit.converged:
-            out.print(f"[dim]next: a smaller --step-factor, --method lm, or 'fitaudit sweep {args.scenario}' to see "
+            out.print(f"[dim]next: a smaller --step-factors, --solver lm, or 'fitaudit sweep {args.scenario}' to see "
                       "which starts and step factors reach the best fit[/]", soft_wrap=True)
     return EXIT_OK if fit.converged else EXIT_FINDING
 

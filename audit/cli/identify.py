@@ -17,8 +17,7 @@ from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_ou
 DESCRIPTION = """\
 Take the best known fit, then ask whether the data can determine each parameter. The best
 known fit is the sweep's reference (the lowest SSR inside the parameter ranges) when
-OUT/sweep.json (default OUT: fitaudit-output) holds a sweep of the same data, model, ranges and
-solver settings, else the lowest-SSR fit from the scenario's start over its step factors and
+OUT/sweep.json holds a sweep of the same data, model, ranges and solver settings, else the lowest-SSR fit from the scenario's start over its step factors and
 Levenberg-Marquardt; a warning says when a lower SSR than the audited one is known.
 
   singular values   of the weighted Jacobian, raw and with unit-length columns, and the
@@ -46,7 +45,7 @@ profile refit's included), 2 bad input."""
 
 EXAMPLES = """\
   fitaudit identify scenarios/probe-cooling
-  fitaudit identify scenarios/probe-cooling --points 61 -o audit-out
+  fitaudit identify scenarios/probe-cooling --profile-points 61 -o audit-out
   fitaudit identify scenarios/probe-cooling --jobs 2 --json > identifiability.json"""
 
 
@@ -54,12 +53,11 @@ def register(subparsers) -> None:
     parser = add_command(subparsers, "identify", "check that the data determine every parameter",
                          DESCRIPTION, EXAMPLES, run)
     add_scenario_argument(parser)
-    parser.add_argument("--points", type=int, metavar="N",
+    parser.add_argument("--profile-points", type=int, metavar="N",
                         help="grid points of each parameter's profile, the estimate included "
                              "(default: [identifiability] profile_points, 41)")
-    add_parallel_options(parser, default_jobs=1, dask=False)
-    add_output_option(parser, "identifiability.json and the figures (sweep.json is read from OUT, "
-                              "else from fitaudit-output)", default=None)
+    add_parallel_options(parser, dask=False)
+    add_output_option(parser, "identifiability.json and the figures; the sweep's sweep.json is read from there")
     add_json_option(parser)
 
 
@@ -73,8 +71,8 @@ def run(args: argparse.Namespace) -> int:
         def on_step(done: int, total: int) -> None:
             progress.update(task, completed=done, total=total)
 
-        result = identify_scenario(scenario, points=args.points, plan=plan, on_step=on_step, reference=reference)
-    written = write_results(result, Path(args.out), "identifiability", write_figures) if args.out else []
+        result = identify_scenario(scenario, points=args.profile_points, plan=plan, on_step=on_step, reference=reference)
+    written = write_results(result, Path(args.out), "identifiability", write_figures)
     if args.json:
         print_json(result.to_dict())
     else:

@@ -5,12 +5,12 @@ import argparse
 
 from rich.table import Table
 
-from ..engine.batch import METHODS
 from ..engine.outcomes import Outcome
 from ..validation.check import ProblemCheck, StrdReport, StrdSettings, check_folder, reference_files
 from ..validation.extended_precision import EXTENDED_DIGITS
 from ..validation.grade import THRESHOLDS, VERDICT_LABELS, VERDICT_MEANINGS, Verdict
-from .common import EXIT_FINDING, EXIT_OK, add_command, add_json_option, out, print_json, progress_bar
+from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_solver_option, add_step_factors_option,
+                     out, print_json, progress_bar)
 
 DEFAULTS = StrdSettings()
 
@@ -42,7 +42,7 @@ Exit status: 0 every problem passed from both starts, 1 some did not, 2 bad inpu
 
 EXAMPLES = """\
   fitaudit strd ../shared/reference/nist-strd
-  fitaudit strd nist/ --method gn --step-factor 1 0.5 0.25 0.1
+  fitaudit strd nist/ --solver gn --step-factors 1,0.5,0.25,0.1
   fitaudit strd nist/ --json > strd-validation.json"""
 
 
@@ -50,11 +50,9 @@ def register(subparsers) -> None:
     parser = add_command(subparsers, "strd", "check the solver against the NIST StRD reference problems",
                          DESCRIPTION, EXAMPLES, run)
     parser.add_argument("folder", metavar="DIR", help="folder holding NIST StRD nonlinear regression .dat files")
-    parser.add_argument("--method", choices=METHODS, default=DEFAULTS.method,
-                        help=f"gn (Gauss-Newton with step factor) or lm (Levenberg-Marquardt); default {DEFAULTS.method}")
-    parser.add_argument("--step-factor", type=float, nargs="+", action="extend", metavar="A",
-                        help="one or more step factors in (0, 1]; with several, each start shows its best run "
-                             "and the factors that reached the same verdict (default 1)")
+    add_solver_option(parser, DEFAULTS.method)
+    add_step_factors_option(parser, "1; with several, each start shows its best run and the factors that reached "
+                                    "the same verdict")
     parser.add_argument("--tolerance", type=float, default=DEFAULTS.tolerance, metavar="TOL",
                         help=f"largest relative parameter change that counts as converged (default {DEFAULTS.tolerance:g})")
     parser.add_argument("--max-iterations", type=int, default=DEFAULTS.max_iterations, metavar="N",
@@ -63,7 +61,8 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    settings = StrdSettings(method=args.method, step_factors=tuple(args.step_factor or DEFAULTS.step_factors),
+    settings = StrdSettings(method=args.solver or DEFAULTS.method,
+                            step_factors=tuple(args.step_factors or DEFAULTS.step_factors),
                             tolerance=args.tolerance, max_iterations=args.max_iterations)
     total = len(reference_files(args.folder))
     with progress_bar("reference problems", disable=args.json) as progress:

@@ -13,8 +13,8 @@ from ..sweep.result import BEST, CATEGORIES, SweepResult
 from ..sweep.run import SweepRequest, run_sweep
 from ..sweep.starts import DESIGNS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
-                     add_scenario_argument, err, number, open_scenario, out, parallel_plan, print_json, progress_bar,
-                     write_results)
+                     add_scenario_argument, add_solver_option, add_step_factors_option, err, number, open_scenario, out,
+                     parallel_plan, print_json, progress_bar, write_results)
 
 DESCRIPTION = """\
 Does the fit depend on where it starts, or on the step factor? This command fits the model from
@@ -60,7 +60,7 @@ factor, 1 when it does not (or no safe region was found), 2 bad input."""
 
 EXAMPLES = """\
   fitaudit sweep scenarios/probe-cooling
-  fitaudit sweep scenarios/probe-cooling --design lhs --points 20000 --step-factors 1,0.5,0.2
+  fitaudit sweep scenarios/probe-cooling --design lhs --starts 20000 --step-factors 1,0.5,0.2 --solver gn,lm
   fitaudit sweep scenarios/probe-cooling --jobs 2 -o audit-out --json
   fitaudit sweep scenarios/probe-cooling --backend dask --scheduler tcp://10.0.0.5:8786"""
 
@@ -72,15 +72,11 @@ def register(subparsers) -> None:
     parser.add_argument("--design", choices=DESIGNS,
                         help="how starts are spread: a full grid, a Sobol' sequence or a Latin hypercube "
                              "(default: the scenario's [sweep] design)")
-    parser.add_argument("--points", type=int, metavar="N",
+    parser.add_argument("--starts", type=int, metavar="N",
                         help="number of starts (a grid rounds down to a whole number per axis; "
                              "default: the scenario's [sweep] points)")
-    parser.add_argument("--step-factors", type=_numbers, metavar="A,B,...",
-                        help="step factors in (0, 1], comma-separated, e.g. 1,0.5,0.25 "
-                             "(default: the scenario's [solver] step_factors)")
-    parser.add_argument("--methods", type=_words, metavar="gn,lm",
-                        help="solvers to sweep: gn (Gauss-Newton), lm (Levenberg-Marquardt) or both "
-                             "(default: the scenario's [sweep] methods)")
+    add_step_factors_option(parser, "the scenario's [solver] step_factors")
+    add_solver_option(parser, "the scenario's [sweep] methods", several=True)
     parser.add_argument("--resolution", type=int, metavar="N",
                         help="points per axis of each basin map (default: the scenario's [sweep] resolution)")
     add_parallel_options(parser)
@@ -88,21 +84,10 @@ def register(subparsers) -> None:
     add_json_option(parser)
 
 
-def _numbers(text: str) -> tuple[float, ...]:
-    try:
-        return tuple(float(item) for item in text.split(",") if item.strip())
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected numbers separated by commas, got {text!r}") from None
-
-
-def _words(text: str) -> tuple[str, ...]:
-    return tuple(item.strip() for item in text.split(",") if item.strip())
-
-
 def run(args: argparse.Namespace) -> int:
     scenario = open_scenario(args)
-    request = SweepRequest.from_scenario(scenario, design=args.design, points=args.points,
-                                         step_factors=args.step_factors, methods=args.methods,
+    request = SweepRequest.from_scenario(scenario, design=args.design, points=args.starts,
+                                         step_factors=args.step_factors, methods=args.solver,
                                          resolution=args.resolution)
     plan = parallel_plan(args)
     folder = Path(args.out)

@@ -298,7 +298,7 @@ def identify_scenario(scenario, *, points: int | None = None, plan: ParallelPlan
     settings = scenario.identifiability
     if points is not None:
         if points < 5:
-            raise InputError(f"--points {points}: a profile needs at least 5 grid points")
+            raise InputError(f"--profile-points {points}: a profile needs at least 5 grid points")
         settings = replace(settings, profile_points=points)
     known = best_known_fit(scenario.problem, scenario.start, **scenario.solver.fit_options(), reference=reference,
                            accept_lost_rank=True)

@@ -49,7 +49,7 @@ def next_step(problem: Problem, start: np.ndarray, counts: np.ndarray, solutions
                 "if they are physical, else check the model")
     kind = CATEGORIES[int(np.argmax(totals))].replace("_", " ")
     return (f"most runs ended {kind}: try smaller step factors (--step-factors) or Levenberg-Marquardt "
-            "(--methods lm), more iterations ([solver] max_iterations), and check the derivatives with "
+            "(--solver lm), more iterations ([solver] max_iterations), and check the derivatives with "
             "`fitaudit derivatives`")
 
 

@@ -96,10 +96,10 @@ class SweepRequest:
         methods = tuple(sweep.methods if methods is None else methods)
         for method in methods:
             if method not in ("gn", "lm"):
-                raise InputError(f"--methods: unknown method {method!r}{nearest(method, ('gn', 'lm'))}")
+                raise InputError(f"--solver: unknown solver {method!r}{nearest(method, ('gn', 'lm'))}")
         points = sweep.points if points is None else points
         if points < 1:
-            raise InputError(f"--points: must be at least 1, got {points}")
+            raise InputError(f"--starts: must be at least 1, got {points}")
         resolution = sweep.resolution if resolution is None else resolution
         if resolution < 2:
             raise InputError(f"--resolution: must be at least 2, got {resolution}")

@@ -41,9 +41,9 @@ class StrdSettings:
 
     def __post_init__(self) -> None:
         if self.method not in METHODS:
-            raise InputError(f"--method {self.method}: must be one of {', '.join(METHODS)}")
+            raise InputError(f"--solver {self.method}: must be one of {', '.join(METHODS)}")
         if not self.step_factors or not all(0 < factor <= 1 for factor in self.step_factors):
-            raise InputError(f"--step-factor: every factor must lie in (0, 1], got {list(self.step_factors)}")
+            raise InputError(f"--step-factors: every factor must lie in (0, 1], got {list(self.step_factors)}")
         if not self.tolerance > 0:
             raise InputError(f"--tolerance {self.tolerance}: must be positive")
         if self.max_iterations < 1:

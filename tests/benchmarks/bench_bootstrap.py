@@ -1,6 +1,6 @@
 """Bootstrap throughput on the bundled probe-cooling scenario: refits per second with 1 and 2 jobs.
 
-    python tests/benchmarks/bench_bootstrap.py [--samples N] [--method residual|wild|pairs]
+    python tests/benchmarks/bench_bootstrap.py [--samples N] [--resampling residual|wild|pairs]
 
 Prints one JSON object. Each job count is timed after a small warm-up run (which starts the
 worker processes), so the figures are the steady rate of the refits themselves; the results
@@ -26,20 +26,20 @@ SCENARIO = Path(__file__).resolve().parents[2] / "scenarios" / "probe-cooling"
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--samples", type=int, default=100_000, help="bootstrap replicates per timed run")
-    parser.add_argument("--method", default="residual", choices=("residual", "wild", "pairs"))
+    parser.add_argument("--resampling", default="residual", choices=("residual", "wild", "pairs"))
     args = parser.parse_args()
     scenario = load_scenario(SCENARIO)
     timings, results = {}, {}
     for jobs in (1, 2):
         plan = ParallelPlan(jobs=jobs)
-        bootstrap_scenario(scenario, method=args.method, samples=2000, plan=plan)
+        bootstrap_scenario(scenario, method=args.resampling, samples=2000, plan=plan)
         started = time.perf_counter()
-        results[jobs] = bootstrap_scenario(scenario, method=args.method, samples=args.samples, plan=plan)
+        results[jobs] = bootstrap_scenario(scenario, method=args.resampling, samples=args.samples, plan=plan)
         timings[jobs] = time.perf_counter() - started
     refits = total_refits(scenario.problem, args.samples)
     rate = {jobs: args.samples / seconds for jobs, seconds in timings.items()}
     print(json.dumps({
-        "scenario": SCENARIO.name, "method": args.method, "samples": args.samples,
+        "scenario": SCENARIO.name, "method": args.resampling, "samples": args.samples,
         "refits_including_jackknife": refits, "cores": os.cpu_count(),
         "seconds": {f"jobs_{jobs}": round(seconds, 3) for jobs, seconds in timings.items()},
         "replicates_per_second": {f"jobs_{jobs}": round(value) for jobs, value in rate.items()},

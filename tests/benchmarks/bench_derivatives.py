@@ -1,6 +1,6 @@
 """Derivative audit timing on the bundled probe-cooling scenario.
 
-    python tests/benchmarks/bench_derivatives.py [--points N] [--repeats R]
+    python tests/benchmarks/bench_derivatives.py [--check-points N] [--repeats R]
 
 Prints one JSON object: the whole audit (best fit, numeric derivatives, comparison) for N
 sampled points, and the numeric derivatives of all points in one batched numdifftools call
@@ -35,14 +35,14 @@ def best_of(repeats: int, work) -> tuple[float, object]:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--points", type=int, default=100, help="sampled check points")
+    parser.add_argument("--check-points", type=int, default=100, help="sampled check points")
     parser.add_argument("--repeats", type=int, default=3, help="timed repeats (the best is reported)")
     args = parser.parse_args()
     scenario = load_scenario(SCENARIO)
     problem = scenario.problem
-    points = check_points(problem, scenario.parameters, scenario.solver, args.points, scenario.derivatives.seed).params
+    points = check_points(problem, scenario.parameters, scenario.solver, args.check_points, scenario.derivatives.seed).params
 
-    audit_seconds, audit = best_of(args.repeats, lambda: audit_derivatives(scenario, args.points))
+    audit_seconds, audit = best_of(args.repeats, lambda: audit_derivatives(scenario, args.check_points))
     batched_seconds, batched = best_of(args.repeats, lambda: numeric_derivatives(problem, points))
     looped_seconds, looped = best_of(args.repeats, lambda: [numeric_derivatives(problem, row[None, :])
                                                             for row in points])

@@ -1,6 +1,6 @@
 """Profile likelihood: one batch per step for all parameters against one call per profile side.
 
-    python tests/benchmarks/bench_identifiability.py [--points N] [--repeat R]
+    python tests/benchmarks/bench_identifiability.py [--profile-points N] [--repeat R]
 
 The batched profiles (``audit.identifiability.profiles.profile_all``: every parameter and both directions of a
 walk step, then of a refinement round of the interval ends, in one ``fit_batch`` call) are timed
@@ -118,15 +118,15 @@ def measure(name: str, problem: Problem, start: np.ndarray, points: int, repeat:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--points", type=int, default=41, help="profile grid points per parameter")
+    parser.add_argument("--profile-points", type=int, default=41, help="profile grid points per parameter")
     parser.add_argument("--repeat", type=int, default=3, help="timed repetitions (the best is kept)")
     args = parser.parse_args()
     scenario = load_scenario(SCENARIO)
     exponentials, start = three_exponentials()
     saturation, saturation_start, lower, upper = low_concentration_saturation()
-    results = [measure("probe-cooling", scenario.problem, scenario.start, args.points, args.repeat),
-               measure("three-exponentials", exponentials, start, args.points, args.repeat),
-               measure("low-concentration-saturation", saturation, saturation_start, args.points, args.repeat,
+    results = [measure("probe-cooling", scenario.problem, scenario.start, args.profile_points, args.repeat),
+               measure("three-exponentials", exponentials, start, args.profile_points, args.repeat),
+               measure("low-concentration-saturation", saturation, saturation_start, args.profile_points, args.repeat,
                        lower, upper)]
     print(json.dumps({"benchmark": "profiles, batched vs one call per side", "results": results}, indent=2))
 

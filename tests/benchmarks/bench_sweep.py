@@ -1,6 +1,6 @@
 """Sweep throughput and memory: a million starts of a 4-parameter problem with 200 observations.
 
-    python tests/benchmarks/bench_sweep.py [--points N] [--step-factors 1,0.5] [--jobs 1,2]
+    python tests/benchmarks/bench_sweep.py [--starts N] [--step-factors 1,0.5] [--jobs 1,2]
 
 Prints one JSON object. Each job count runs in a fresh child process with an empty cache, so
 its peak resident memory (``resource.getrusage`` maxrss) is that of the whole sweep: with one
@@ -106,7 +106,7 @@ def child(scenario: Path, jobs: int, out: Path) -> None:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--points", type=int, default=1_000_000, help="design starts (default 1,000,000)")
+    parser.add_argument("--starts", type=int, default=1_000_000, help="design starts (default 1,000,000)")
     parser.add_argument("--step-factors", default="1,0.5", help="comma-separated step factors (default 1,0.5)")
     parser.add_argument("--jobs", default="1,2", help="job counts to compare (default 1,2)")
     parser.add_argument("--resolution", type=int, default=51, help="basin map points per axis (default 51)")
@@ -118,7 +118,7 @@ def main() -> None:
     factors = [float(item) for item in args.step_factors.split(",")]
     runs = {}
     with tempfile.TemporaryDirectory(prefix="bench-sweep-") as temporary:
-        scenario = write_scenario(Path(temporary) / "scenario", args.points, factors, args.resolution)
+        scenario = write_scenario(Path(temporary) / "scenario", args.starts, factors, args.resolution)
         for jobs in (int(item) for item in args.jobs.split(",")):
             # The same hash seed in every child, so that the result digests can be compared.
             environment = {**os.environ, "PYTHONHASHSEED": "0"}
@@ -130,7 +130,7 @@ def main() -> None:
     first = min(runs)
     peak = max(run["peak_mb_main"] + jobs * run["peak_mb_largest_worker"] * (jobs > 1) for jobs, run in runs.items())
     print(json.dumps({
-        "design_points": args.points, "step_factors": factors, "observations": 200, "parameters": 4,
+        "design_points": args.starts, "step_factors": factors, "observations": 200, "parameters": 4,
         "starts_including_maps": runs[first]["starts"], "cores": os.cpu_count(),
         "seconds": {f"jobs_{jobs}": round(run["seconds"], 2) for jobs, run in runs.items()},
         "starts_per_second": {f"jobs_{jobs}": round(value) for jobs, value in rate.items()},
