@@ -11,8 +11,8 @@ from rich.table import Table
 from ..report.result import AUDIT_FILE, FIGURES, AuditResult
 from ..report.run import QUICK_POINTS, QUICK_RESOLUTION, QUICK_SAMPLES, STAGES, run_audit
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
+                     add_step_factors_option,
                      add_scenario_argument, err, number, open_scenario, out, parallel_plan, print_json)
-from .sweep import _numbers
 
 DESCRIPTION = f"""\
 Can I publish this fit? This command runs every check fitaudit has, in order, and ends with a
@@ -54,10 +54,8 @@ def register(subparsers) -> None:
     parser.add_argument("--quick", action="store_true",
                         help=f"small designs for a first look ({QUICK_POINTS} starts, {QUICK_SAMPLES} bootstrap "
                              "replicates)")
-    parser.add_argument("--step-factors", type=_numbers, metavar="A,B,...",
-                        help="step factors in (0, 1], comma-separated, e.g. 1,0.5,0.25 "
-                             "(default: the scenario's [solver] step_factors)")
-    add_parallel_options(parser, default_jobs=1)
+    add_step_factors_option(parser, "the scenario's [solver] step_factors")
+    add_parallel_options(parser)
     add_json_option(parser)
 
 
