@@ -16,6 +16,7 @@ from scipy import stats
 from audit.errors import InputError
 from audit.residuals import check_residuals
 from audit.residuals.check import Check, Levels
+from audit.residuals.normality import normality_check
 from audit.residuals.scheme import recommend_scheme
 from audit.residuals.serial import serial_check
 from audit.residuals.sign_runs import runs_check
@@ -304,3 +305,11 @@ def test_more_bad_input_is_refused(change, message):
     arguments.update(change)
     with pytest.raises(InputError, match=message):
         check_residuals(**arguments)
+
+
+def test_residuals_all_of_one_value_leave_normality_not_applicable():
+    # A sample without spread has no shape to test (Shapiro-Wilk's W is 0/0 there).
+    check = normality_check(np.full(5, 0.2), LEVELS)
+    assert check.name == "normality" and math.isnan(check.p_value)
+    assert check.finding == ("not applicable: every residual has the same value, which no distribution test "
+                             "can judge")
