@@ -1,0 +1,163 @@
+"""Bootstrap intervals and the flags comparing them with the t interval: tails, ties, the
+acceleration by hand, each flag's boundary, sign and words, and the JSON keys.
+
+References are worked out by hand in the comments (order statistics with linear interpolation,
+Hyndman & Fan 1996 type 7; the jackknife acceleration of Efron & Tibshirani 1993, ch. 14) or come
+from scipy.special.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from scipy import special
+
+from audit.errors import InputError
+from audit.uncertainty.disagreement import compare_intervals
+from audit.uncertainty.intervals import bca_interval, jackknife_acceleration, percentile_interval
+
+
+def test_percentile_interval_reads_the_two_tails():
+    replicates = np.array([[5.0], [1.0], [4.0], [2.0], [3.0]])
+    # Type 7 quantiles of 1..5 at 0.25 and 0.75: positions 0.25·4 = 1 and 0.75·4 = 3 → 2 and 4.
+    lower, upper = percentile_interval(replicates, 0.5)
+    assert (lower[0], upper[0]) == (2.0, 4.0)
+    # At 0.8: tails 0.1 and 0.9, positions 0.4 and 3.6 → 1.4 and 4.6.
+    lower, upper = percentile_interval(replicates, 0.8)
+    assert lower[0] == pytest.approx(1.4, rel=1e-12) and upper[0] == pytest.approx(4.6, rel=1e-12)
+
+
+@pytest.mark.parametrize("replicates, confidence, message", [
+    (np.ones((1, 2)), 0.9, "at least 2 replicates"),
+    (np.ones(5), 0.9, "at least 2 replicates"),
+    (np.ones((5, 2)), 0.0, "confidence"),
+    (np.ones((5, 2)), 1.0, "confidence"),
+])
+def test_intervals_refuse_too_few_replicates_or_a_level_outside_zero_one(replicates, confidence, message):
+    with pytest.raises(InputError, match=message):
+        percentile_interval(replicates, confidence)
+
+
+def test_two_replicates_are_enough():
+    lower, upper = percentile_interval(np.array([[1.0], [3.0]]), 0.5)
+    assert (lower[0], upper[0]) == (1.5, 2.5)        # positions 0.25 and 0.75 between 1 and 3
+
+
+def test_jackknife_acceleration_by_hand():
+    # Leave-one-out values 1, 2, 4: mean 7/3, d = mean − θ_(i) = 4/3, 1/3, −5/3;
+    # Σd³ = (64 + 1 − 125)/27 = −60/27, Σd² = 42/9, a = Σd³ / (6·(Σd²)^{3/2}).
+    acceleration = jackknife_acceleration(np.array([[1.0, 5.0], [2.0, 5.0], [4.0, 5.0]]))
+    assert acceleration[0] == pytest.approx((-60 / 27) / (6 * (42 / 9) ** 1.5), rel=1e-12)
+    assert np.isnan(acceleration[1])                  # a jackknife that does not move
+    with pytest.raises(InputError, match="at least 3"):
+        jackknife_acceleration(np.ones((2, 1)))
+    with pytest.raises(InputError, match="at least 3"):
+        jackknife_acceleration(np.ones(4))
+
+
+def test_bca_counts_ties_with_the_estimate_as_half():
+    # Replicates 1, 2, 3, 3, 4, 5 with the estimate 3: 2 below, 2 tied → share (2 + 4)/12 = 1/2,
+    # z0 = Φ⁻¹(1/2) = 0; with a = 0 the levels are Φ(±1.645) = 0.05, 0.95: the percentile interval.
+    replicates = np.array([1.0, 2.0, 3.0, 3.0, 4.0, 5.0])[:, None]
+    result = bca_interval(replicates, np.array([3.0]), np.array([0.0]), 0.9)
+    assert result.bias_correction[0] == 0.0
+    lower, upper = np.quantile(replicates[:, 0], [0.05, 0.95])
+    assert result.lower[0] == pytest.approx(lower, rel=1e-12) and result.upper[0] == pytest.approx(upper, rel=1e-12)
+    # The estimate below every replicate: share 0, z0 = −inf, no BCa interval.
+    beyond = bca_interval(replicates, np.array([0.5]), np.array([0.0]), 0.9)
+    assert beyond.bias_correction[0] == -np.inf and np.isnan(beyond.lower[0]) and np.isnan(beyond.upper[0])
+
+
+def test_bca_levels_move_with_bias_and_acceleration():
+    # z0 = Φ⁻¹(3/8) with 3 of 8 replicates below 4.5 and none tied; a = 0.1; for z = ∓Φ⁻¹(0.05)
+    # level = Φ(z0 + (z0 + z)/(1 − a(z0 + z))) (Efron & Tibshirani 1993, eq. 14.10), by scipy.special.
+    replicates = np.arange(1.0, 9.0)[:, None] + np.array([0.0])
+    z0 = special.ndtri(3 / 8)
+    result = bca_interval(replicates, np.array([3.5]), np.array([0.1]), 0.9)
+    assert result.bias_correction[0] == pytest.approx(z0, rel=1e-12)
+    levels = [special.ndtr(z0 + (z0 + z) / (1 - 0.1 * (z0 + z))) for z in (special.ndtri(0.05), special.ndtri(0.95))]
+    expected = np.quantile(replicates[:, 0], levels)
+    assert result.lower[0] == pytest.approx(expected[0], rel=1e-12)
+    assert result.upper[0] == pytest.approx(expected[1], rel=1e-12)
+
+
+def comparison(estimate, t_lower, t_upper, lower, upper, bias=None, std_error=None, replicates=None, bca=True):
+    """compare_intervals on hand-made inputs (the bootstrap interval given as BCa or percentile)."""
+    n = len(estimate)
+    estimate, lower, upper = (np.asarray(v, dtype=float) for v in (estimate, lower, upper))
+    nan = np.full(n, np.nan)
+    given = (lower, upper)
+    replicates = np.vstack([estimate, estimate]) if replicates is None else np.asarray(replicates, dtype=float)
+    return compare_intervals(tuple("abcdefgh"[:n]), estimate, np.asarray(t_lower, float), np.asarray(t_upper, float),
+                             given if not bca else (nan, nan), given if bca else (nan, nan),
+                             np.ones(n) if std_error is None else np.asarray(std_error, float),
+                             np.zeros(n) if bias is None else np.asarray(bias, float), replicates)
+
+
+def test_flags_stay_quiet_exactly_at_their_limits():
+    # Width 3 against 2 is the ratio 1.5; width 1 against 1.5 is 1/1.5; arms 1.5 against 1;
+    # bias 0.25 standard errors: all at the limits the module states, none beyond.
+    exact = comparison(estimate=[1.0, 1.0], t_lower=[0.0, 0.5], t_upper=[2.0, 2.0], lower=[0.0, 0.5],
+                       upper=[3.0, 1.5], bias=[0.25, -0.25])
+    assert exact.width_ratio.tolist() == [1.5, 2 / 3]
+    assert exact.arm_ratio.tolist() == [2.0, 1.0]
+    assert [(flag.parameter, flag.kind) for flag in exact.flags] == [("a", "asymmetry")]
+    arms = comparison(estimate=[2.0], t_lower=[0.75], t_upper=[3.25], lower=[1.0], upper=[3.5])
+    assert arms.arm_ratio.tolist() == [1.5] and arms.flags == []
+
+
+def test_each_flag_says_which_way():
+    result = comparison(estimate=[1.0, 1.0, 1.0, 1.0], t_lower=[0.5, -1.0, 0.0, 0.0], t_upper=[1.5, 3.0, 2.0, 2.0],
+                        lower=[-1.0, 0.5, 0.5, -1.0], upper=[3.0, 1.5, 3.0, 1.5], bias=[0.5, -0.5, 0.0, 0.0],
+                        std_error=[1.0, 1.0, 1.0, 1.0], bca=False)
+    assert result.compared == ("percentile",) * 4
+    reasons = {(flag.parameter, flag.kind): flag.reason for flag in result.flags}
+    assert reasons[("a", "width")] == ("the percentile interval is 4.00 times as wide as the t interval: the "
+                                       "linearised standard error understates the spread of the refits")
+    assert reasons[("b", "width")] == ("the percentile interval is 0.25 times as wide as the t interval: the "
+                                       "linearised standard error overstates the spread of the refits")
+    assert reasons[("c", "asymmetry")] == ("the percentile interval reaches 4.00 times as far above the estimate as "
+                                           "below it, while the t interval is symmetric by construction: the "
+                                           "estimate's distribution is skewed")
+    assert reasons[("d", "asymmetry")] == ("the percentile interval reaches 4.00 times as far below the estimate as "
+                                           "above it, while the t interval is symmetric by construction: the "
+                                           "estimate's distribution is skewed")
+    assert reasons[("a", "bias")] == ("the bootstrap bias is 0.50 standard errors (above the estimate); above 0.25 "
+                                      "it is not negligible")
+    assert reasons[("b", "bias")] == ("the bootstrap bias is 0.50 standard errors (below the estimate); above 0.25 "
+                                      "it is not negligible")
+
+
+def test_an_interval_ending_at_the_estimate_does_not_contain_it():
+    result = comparison(estimate=[1.0], t_lower=[0.5], t_upper=[1.5], lower=[1.0], upper=[2.0])
+    assert np.isnan(result.arm_ratio[0])
+    assert [flag.reason for flag in result.flags] == [
+        "the BCa interval [1, 2] does not contain the estimate 1: the refits are strongly biased"]
+
+
+def test_bound_flags_need_every_replicate_strictly_on_one_side():
+    replicates = [[2.0, -2.0, 3.0, -3.0], [1.0, -1.0, 0.0, 0.0], [3.0, -3.0, 1.0, -1.0]]
+    result = comparison(estimate=[2.0, -2.0, 2.0, -2.0], t_lower=[-0.5, -4.0, -0.5, -4.0],
+                        t_upper=[4.0, 0.5, 4.0, 0.5], lower=[0.5, -3.5, 0.5, -3.5], upper=[3.5, -0.5, 3.5, -0.5],
+                        replicates=replicates)
+    bounds = {flag.parameter: flag.reason for flag in result.flags if flag.kind == "bound"}
+    # Parameters c and d have a replicate at exactly zero: not strictly one-signed.
+    assert bounds == {
+        "a": "the t interval reaches -0.5, below zero, while the estimate and all 3 used replicates are positive: "
+             "the linearised interval crosses a bound the parameter respects",
+        "b": "the t interval reaches 0.5, above zero, while the estimate and all 3 used replicates are negative: "
+             "the linearised interval crosses a bound the parameter respects",
+    }
+
+
+def test_to_dict_keys_carry_the_numbers():
+    result = comparison(estimate=[1.0, 2.0], t_lower=[0.0, 1.0], t_upper=[2.0, 3.0], lower=[0.0, 1.5],
+                        upper=[3.0, 2.5], bias=[0.5, 0.0], std_error=[2.0, 1.0])
+    data = json.loads(json.dumps(result.to_dict()))
+    assert data["compared"] == ["bca", "bca"]
+    assert data["lower"] == [0.0, 1.5] and data["upper"] == [3.0, 2.5]
+    assert data["width_ratio"] == [1.5, 0.5]           # 3/2 and 1/2 by hand
+    assert data["arm_ratio"] == [2.0, 1.0]              # (3 − 1)/(1 − 0), (2.5 − 2)/(2 − 1.5)
+    assert data["bias_ratio"] == [0.25, 0.0]            # 0.5/2
+    assert data["flags"][0] == {"parameter": "a", "kind": "asymmetry", "reason": result.flags[0].reason}

@@ -1,0 +1,138 @@
+"""The sweep's advice on hand-made tallies: the safe region's edge (99 % of at least 100 starts),
+its half-width and box, the step-factor choice with its tie rule, and the words of each reason.
+
+Every expected number is counted by hand in the comment beside it; percentiles are checked
+against numpy.percentile(method="inverted_cdf").
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from audit.sweep.recommend import (
+    DISTANCE_BINS,
+    choose_step_factor,
+    histogram_percentile,
+    region_box,
+    safe_regions,
+    start_distances,
+)
+
+
+def test_start_distances_are_the_largest_coordinate_difference():
+    unit = np.array([[0.5, 0.5], [0.9, 0.45], [0.0, 1.0], [0.5004, 0.5]])
+    distance, bins = start_distances(unit, np.array([0.5, 0.5]))
+    np.testing.assert_allclose(distance, [0.0, 0.4, 0.5, 0.0004], atol=1e-15)   # max |Δ| by hand
+    # Bins of width 1/1000: 0.4 → 400, 0.5 → 500, 0.0004 → 0; a distance of 1 falls in the last bin.
+    assert bins.tolist() == [0, 400, 500, 0]
+    assert start_distances(np.array([[1.0]]), np.array([0.0]))[1].tolist() == [DISTANCE_BINS - 1]
+
+
+def test_histogram_percentile_matches_numpy_inverted_cdf():
+    values = np.array([0, 1, 1, 2, 5, 5, 5, 9])
+    histogram = np.bincount(values, minlength=10)
+    for q in (0.0, 12.5, 50.0, 90.0, 100.0):
+        assert histogram_percentile(histogram, q) == np.percentile(values, q, method="inverted_cdf")
+    assert np.isnan(histogram_percentile(np.zeros(10), 50.0))
+
+
+def region_tallies():
+    """1000 bins; 100 starts in bin 0 all reaching the best, 100 in bin 10 of which 98 do, 100
+    in bin 20 of which 100 do, 100 in bin 30 of which 90 do; farthest distance bin/1000 + 0.0005."""
+    total = np.zeros(DISTANCE_BINS)
+    best = np.zeros((1, 2, DISTANCE_BINS))
+    farthest = np.full(DISTANCE_BINS, -np.inf)
+    for bin_, reached in ((0, 100), (10, 98), (20, 100), (30, 90)):
+        total[bin_] = 100
+        best[0, 0, bin_] = reached
+        farthest[bin_] = bin_ / 1000 + 0.0005
+    best[0, 1, 0] = 98                                # the second setting: 98 of the first 100
+    return total, best, farthest
+
+
+def test_the_safe_region_is_the_largest_cube_keeping_99_percent():
+    total, best, farthest = region_tallies()
+    last, radius, starts, share = safe_regions(total, best, farthest)
+    # Setting 0: cumulative shares 100/100, 198/200 = 0.99 (exactly the level: safe),
+    # 298/300 = 0.9933 up to bin 29, 388/400 = 0.97 from bin 30: the cube ends at bin 29 with
+    # 300 starts, its half-width the farthest start inside, 0.0205 (hand count).
+    assert last[0, 0] == 29 and starts[0, 0] == 300
+    assert radius[0, 0] == pytest.approx(0.0205) and share[0, 0] == pytest.approx(298 / 300)
+    # Setting 1: 98/100, then 98/200 ...: never 99 %, no region.
+    assert last[0, 1] == -1 and np.isnan(radius[0, 1]) and starts[0, 1] == 0 and np.isnan(share[0, 1])
+    # At least 300 starts are still met by the same cube; 301 by none (hand count).
+    assert safe_regions(total, best, farthest, min_starts=300)[0][0, 0] == 29
+    assert safe_regions(total, best, farthest, min_starts=301)[0][0, 0] == -1
+
+
+class UnitSpace:
+    """A search space whose parameters are 10 × the unit coordinate (linear axes)."""
+
+    @staticmethod
+    def from_unit(unit):
+        return 10.0 * unit
+
+
+def test_the_region_box_spans_the_starts_tried_inside():
+    unit_low = np.full((DISTANCE_BINS, 2), np.inf)
+    unit_high = np.full((DISTANCE_BINS, 2), -np.inf)
+    unit_low[0], unit_high[0] = [0.4, 0.45], [0.6, 0.5]
+    unit_low[5], unit_high[5] = [0.3, 0.5], [0.5, 0.7]
+    lower, upper = region_box(np.array([[5, -1]]), unit_low, unit_high, UnitSpace())
+    # Bins 0..5 together span [0.3, 0.6] × [0.45, 0.7], times 10 (hand).
+    np.testing.assert_allclose(lower[0, 0], [3.0, 4.5])
+    np.testing.assert_allclose(upper[0, 0], [6.0, 7.0])
+    assert np.all(np.isnan(lower[0, 1])) and np.all(np.isnan(upper[0, 1]))
+
+
+STEPS = np.array([1.0, 0.5])
+
+
+def test_shares_within_half_a_point_tie_and_fewer_iterations_win():
+    share = np.array([[0.900, 0.896]])                # 0.4 points apart: a tie (limit 0.5 points)
+    median = np.array([[30.0, 12.0]])
+    radius = np.array([[0.2, 0.1]])
+    choice, reason = choose_step_factor(share, median, STEPS, ("gn",), radius, np.array([[400, 300]]),
+                                        np.array([[0.995, 0.99]]))
+    assert choice == (0, 1)
+    assert reason == ("2 settings reach the best solution from shares within 0.5% of the highest; this one needs "
+                      "the fewest iterations among the settings with a safe starting region; safe from starts "
+                      "within 0.100 of each range's width around the best fit (99.0% of the 300 starts there "
+                      "reached it)")
+    apart = np.array([[0.900, 0.894]])                # 0.6 points apart: the higher share wins
+    choice, reason = choose_step_factor(apart, median, STEPS, ("gn",), radius, np.array([[400, 300]]),
+                                        np.array([[0.995, 0.99]]))
+    assert choice == (0, 0) and reason.startswith("highest share of starts reaching the best solution among")
+
+
+def test_equal_iterations_prefer_the_larger_step_factor_then_the_first_method():
+    share = np.full((2, 2), 0.5)
+    median = np.full((2, 2), 10.0)
+    radius = np.full((2, 2), 0.1)
+    choice, _ = choose_step_factor(share, median, STEPS, ("gn", "lm"), radius, np.full((2, 2), 200),
+                                   np.full((2, 2), 1.0))
+    assert choice == (0, 0)
+
+
+def test_a_higher_share_without_a_region_is_named_as_not_recommendable():
+    share = np.array([[0.6, 0.9]])
+    radius = np.array([[0.05, np.nan]])
+    choice, reason = choose_step_factor(share, np.array([[10.0, 8.0]]), STEPS, ("gn",), radius,
+                                        np.array([[150, 0]]), np.array([[1.0, np.nan]]))
+    assert choice == (0, 0)
+    assert reason == ("safe from starts within 0.050 of each range's width around the best fit (100.0% of the 150 "
+                      "starts there reached it); gn with step factor 0.5 reaches the best from more starts (90.0% "
+                      "against 60.0%) but from no box around the best fit reliably, so it cannot be recommended "
+                      "from any starting region")
+
+
+def test_no_region_anywhere_and_no_start_reaching_the_best_say_so():
+    nothing = np.full((1, 2), np.nan)
+    choice, reason = choose_step_factor(np.array([[0.3, 0.2]]), np.array([[5.0, 4.0]]), STEPS, ("gn",), nothing,
+                                        np.zeros((1, 2)), nothing)
+    assert choice == (0, 0)
+    assert reason == ("highest share of starts reaching the best solution; no setting has a safe starting region (a "
+                      "box around the best fit holding at least 100 starts of which 99% reach it), so start close to "
+                      "the best fit or sweep more starts to find one")
+    assert choose_step_factor(np.zeros((1, 2)), nothing, STEPS, ("gn",), nothing, np.zeros((1, 2)), nothing) == (
+        None, "no start reached the best solution (a converged solution inside the searched ranges)")
