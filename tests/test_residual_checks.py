@@ -53,7 +53,7 @@ def test_a_trend_left_in_the_residuals_flags_runs_and_serial_correlation():
     assert result.runs.details["runs"] == runs  # textbook count, residuals taken in x order
     assert result.runs.details["expected"] == pytest.approx(mean, rel=1e-12)  # 2·n1·n2/N + 1
     assert result.runs.details["z"] == pytest.approx(z, rel=1e-12)
-    assert result.runs.p_value == pytest.approx(p, rel=1e-9)  # scipy.stats.norm two-sided
+    assert result.runs.p_value == pytest.approx(p, rel=1e-9, abs=0)  # scipy.stats.norm two-sided
     assert runs <= 5 and result.runs.status == "fail"
     assert "pattern" in result.runs.finding
 
@@ -67,7 +67,7 @@ def test_a_trend_left_in_the_residuals_flags_runs_and_serial_correlation():
     z_d = (d - 2) / (2 / np.sqrt(60))
     assert result.serial.statistic == pytest.approx(d, rel=1e-12)
     assert result.serial.details["lag1_autocorrelation"] == pytest.approx(lag1, rel=1e-12)
-    assert result.serial.p_value == pytest.approx(2 * stats.norm.sf(abs(z_d)), rel=1e-9)
+    assert result.serial.p_value == pytest.approx(2 * stats.norm.sf(abs(z_d)), rel=1e-9, abs=0)
     assert d < 0.5 and result.serial.status == "fail"
     # A misfit is a model doubt: pairs resampling, which does not trust the model's form.
     assert result.scheme == "pairs" and "pattern" in result.scheme_reason
@@ -89,12 +89,12 @@ def test_spread_growing_with_the_fitted_values_flags_variance_and_suggests_wild(
     statistic = 80 * explained
     assert result.variance.statistic == pytest.approx(statistic, rel=1e-9)
     assert result.variance.details["r_squared"] == pytest.approx(explained, rel=1e-9)
-    assert result.variance.p_value == pytest.approx(stats.chi2.sf(statistic, 1), rel=1e-9)  # scipy.stats.chi2
+    assert result.variance.p_value == pytest.approx(stats.chi2.sf(statistic, 1), rel=1e-9, abs=0)  # scipy.stats.chi2
     assert result.variance.status == "fail"
 
     rank = stats.spearmanr(np.abs(residuals), fitted)  # scipy.stats.spearmanr
     assert result.variance_rank.statistic == pytest.approx(rank.statistic, rel=1e-12)
-    assert result.variance_rank.p_value == pytest.approx(rank.pvalue, rel=1e-9)
+    assert result.variance_rank.p_value == pytest.approx(rank.pvalue, rel=1e-9, abs=0)
     assert result.variance_rank.statistic > 0.4 and result.variance_rank.status == "fail"
 
     assert result.runs.status == "pass" and result.serial.status == "pass"
