@@ -9,18 +9,20 @@ import argparse
 import sys
 
 from .. import __version__
-from . import bootstrap, check, derivatives, fit, identify, strd, sweep
+from . import bootstrap, check, derivatives, fit, identify, new, strd, sweep
+from . import list as list_command   # a module named after its command; 'list' would hide the builtin here
 from .common import run_handler
 
-COMMANDS = (check, fit, strd, sweep, derivatives, bootstrap, identify)
+COMMANDS = (list_command, new, check, fit, strd, sweep, derivatives, bootstrap, identify)
 
 DESCRIPTION = """\
 fitaudit audits a nonlinear least-squares fit before you trust, publish or hand it over:
 does it depend on the starting guess or the step factor, are the hand-derived derivatives
 right, how uncertain are the parameters, and can the data determine them at all?
 
-A scenario is a folder with scenario.toml, a CSV data file and a model (see README.md).
-Start with:  fitaudit check scenarios/probe-cooling
+A scenario is a folder with scenario.toml, a CSV data file and a model (see README.md);
+bundled scenarios can be named instead ('fitaudit list'). Start with:  fitaudit check probe-cooling
+or write your own:  fitaudit new my-fit
 """
 
 
