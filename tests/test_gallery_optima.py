@@ -32,7 +32,9 @@ def test_tracer_washout_reaches_the_same_curve_with_the_terms_exchanged():
     twins = [row for row, (params, ssr) in enumerate(zip(sweep.solution_params, sweep.solution_ssr))
              if row > 0 and np.allclose(params, exchanged, rtol=1e-4)]
     assert len(twins) == 1 and sweep.solution_ssr[twins[0]] == pytest.approx(sweep.best_ssr, rel=1e-9)
-    assert sweep.solution_inside[twins[0]]
+    assert sweep.solution_inside[twins[0]] and sweep.solution_same_curve[twins[0]]
+    assert sweep.solution_equivalence[twins[0]] == "exchange"
+    assert sweep.solution_relation[twins[0]] == "a1↔a2, k1↔k2"
     # Starts reaching either ordering count toward the best fit's curve.
     assert np.all(sweep.curve_shares > sweep.share("best") + 0.05)
     # Reference: scipy.optimize.least_squares polishes the best fit to the same point; the
