@@ -3,6 +3,9 @@
 Each stage runs through its public function with a small design (a few hundred starts, coarse
 basin maps, a few hundred bootstrap replicates) so that every bundled scenario is audited in
 seconds. The stages are cached per scenario, so several tests can assert on one audit.
+The tests reach the stages only through ``quick_audit``, ``quick_bootstrap`` and
+``quick_identifiability``: once ``fitaudit run --quick`` exists, these three are the one place
+to switch to it.
 """
 from __future__ import annotations
 
