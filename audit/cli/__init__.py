@@ -9,18 +9,21 @@ import argparse
 import sys
 
 from .. import __version__
-from . import bootstrap, check, derivatives, fit, identify, run, strd, sweep
+from . import bootstrap, check, derivatives, fit, identify, new, run, strd, sweep
+from . import list as list_command   # a module named after its command; 'list' would hide the builtin here
 from .common import run_handler
 
-COMMANDS = (check, run, fit, strd, sweep, derivatives, bootstrap, identify)
+COMMANDS = (run, list_command, new, check, fit, strd, sweep, derivatives, bootstrap, identify)
 
 DESCRIPTION = """\
 fitaudit audits a nonlinear least-squares fit before you trust, publish or hand it over:
 does it depend on the starting guess or the step factor, are the hand-derived derivatives
 right, how uncertain are the parameters, and can the data determine them at all?
 
-A scenario is a folder with scenario.toml, a CSV data file and a model (see README.md).
-Start with:  fitaudit run scenarios/probe-cooling --quick
+A scenario is a folder with scenario.toml, a CSV data file and a model (see README.md);
+bundled scenarios can be named instead ('fitaudit list'). Start with the whole audit:
+  fitaudit run probe-cooling --quick
+or write your own scenario:  fitaudit new my-fit
 """
 
 

@@ -17,13 +17,13 @@ import numpy as np
 
 from ..engine.problem import Problem
 from ..errors import InputError
+from .bundled import SCENARIO_FILE, resolve_scenario
 from .data_file import read_measurements
 from .formula import check_formula, compile_formula, formula_problem_parts
 from .model_file import describe_model_error, load_model_module
 from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, IdentifiabilitySettings, SolverSettings,
                        SweepSettings, VerdictSettings, nearest, read_section, reject_unknown)
 
-SCENARIO_FILE = "scenario.toml"
 TOP_KEYS = ("title", "description", "data", "model", "parameters", *SECTIONS)
 DATA_KEYS = ("file", "x", "y", "sigma", "drop_nonfinite", "delimiter")
 MODEL_KEYS = ("file", "function", "jacobian", "guess", "expression", "formula")
@@ -101,12 +101,14 @@ def scenario_file(path: Path | str) -> Path:
 
 
 def load_scenario(path: Path | str) -> Scenario:
-    """Read, check and assemble a scenario from its folder or its TOML file.
+    """Read, check and assemble a scenario from its folder, its TOML file or a bundled scenario's name.
+
+    An existing path always wins over a bundled scenario of the same name.
 
     Raises:
         InputError: for any problem with the files, with a message naming file and key.
     """
-    toml_path = scenario_file(path)
+    toml_path = scenario_file(resolve_scenario(path))
     if not toml_path.is_file():
         raise InputError(f"{toml_path}: scenario file not found")
     raw = toml_path.read_bytes()
