@@ -33,6 +33,7 @@ import numpy as np  # noqa: E402
 from scipy.optimize import least_squares, leastsq  # noqa: E402
 
 from audit import Outcome, Problem, fit_batch  # noqa: E402
+from audit.engine.compiled import COMPILED_MIN_RUNS  # noqa: E402
 from audit.inputs.formula import compile_formula, formula_problem_parts  # noqa: E402
 
 TOLERANCE = 1e-8
@@ -143,9 +144,10 @@ def measure(name: str, build, count: int, rounds: int, spread: float, seed: int)
         "gn_formula": lambda: engine_run(twin, starts, "gn"),
         "lm_formula": lambda: engine_run(twin, starts, "lm"),
     }
-    for method in ("gn", "lm"):      # warm-up: first calls, and the compiled kernel's load
+    for method in ("gn", "lm"):      # warm-up: first calls
         engine_run(problem, starts[:64], method)
         engine_run(twin, starts[:64], method)
+    compiled = twin.kernel is not None and twin.kernel() is not None   # compiles or loads the kernel once
     per_fit = {solver: [] for solver in solvers}
     converged, disagreeing = {}, {}
     for _ in range(rounds):
@@ -164,7 +166,7 @@ def measure(name: str, build, count: int, rounds: int, spread: float, seed: int)
             disagreeing[solver] = max(disagreeing.get(solver, 0), int((both & off).sum()))
     baseline = np.array(per_fit["leastsq"])
     figures = {"problem": name, "parameters": problem.n_params, "observations": problem.n_obs, "starts": count,
-               "rounds": rounds, "compiled_path": getattr(twin, "kernel", None) is not None}
+               "rounds": rounds, "compiled_path": compiled and count >= COMPILED_MIN_RUNS}
     for solver, times in per_fit.items():
         ratios = baseline / np.array(times)
         figures[solver] = {
