@@ -31,7 +31,7 @@ ERROR_MAP = LinearSegmentedColormap.from_list("fitaudit_error", ["#f4f1ea", "#9f
 SMALLEST, LARGEST = -16, 0
 
 
-@drawn_once
+@drawn_once()
 def write_figures(result: DerivativeAudit, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
     """Write the audit's figures into ``folder`` in each of ``formats``; returns the paths written."""
     folder = Path(folder)

@@ -34,7 +34,7 @@ LOG_AXIS_SPAN = 10.0
 DIRECTIONS_SHOWN = 3
 
 
-@drawn_once
+@drawn_once()
 def write_figures(result: Identifiability, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
     """Write the stage's figures into ``folder`` in each of ``formats``; return their paths."""
     folder = Path(folder)

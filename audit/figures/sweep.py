@@ -26,7 +26,7 @@ FACTOR_LINES = ("-", "--", ":", "-.")
 PATH_MARGIN = 0.5
 
 
-@drawn_once
+@drawn_once("chunks", "cache")
 def write_figures(result: SweepResult, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
     """Draw every sweep figure into ``folder`` in each of ``formats``; return the files written."""
     folder = Path(folder)
