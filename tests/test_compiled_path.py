@@ -42,7 +42,8 @@ def formula_problem(text: str, names: tuple[str, ...], x: np.ndarray, y: np.ndar
 def both_paths(problem: Problem, starts: np.ndarray, **options):
     """The same batch fitted with the compiled loop (where it applies) and by the numpy engine only."""
     assert len(starts) >= COMPILED_MIN_RUNS
-    return fit_batch(problem, starts, **options), fit_batch(dataclasses.replace(problem, kernel=None), starts, **options)
+    numpy_only = dataclasses.replace(problem, kernel=None)
+    return fit_batch(problem, starts, **options), fit_batch(numpy_only, starts, **options)
 
 
 def loop_status(problem: Problem, starts: np.ndarray, step_factor: float = 1.0, tol: float = 1e-8,

@@ -3,10 +3,12 @@
 A problem may carry a ``kernel``: a function that returns the compiled loop of ``kernel_loop``
 for its model (formula models, where numba is installed; ``inputs.formula_kernel`` builds it),
 or None when it cannot. ``fit_batch`` uses it for Gauss-Newton batches of at least
-COMPILED_MIN_RUNS runs with shared predictors, no history and no per-run free masks, and hands the runs the loop gives back (rank loss, the
-careful QR/SVD path, divergence, model errors, oscillation) to the numpy engine, which replays
-them from their starts. Both paths do the same arithmetic, so a run's result does not depend on
-which path fitted it beyond rounding.
+COMPILED_MIN_RUNS runs with shared predictors, no history and no per-run free masks, and hands
+the runs the loop gives back (rank loss, the careful QR/SVD path, divergence, model errors,
+oscillation) to the numpy engine, which replays them from their starts. Both paths do the same
+arithmetic in a different summation order, so a run's result agrees to rounding (1e-10 relative
+and the same outcome, tests/test_compiled_path.py), except on paths so ill-conditioned or
+chaotic that the numpy engine itself ends elsewhere from a start one rounding unit away.
 """
 from __future__ import annotations
 

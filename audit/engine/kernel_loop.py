@@ -22,9 +22,9 @@ import numpy as np
 CONVERGED, STALLED, HANDED_BACK = 0, 3, -1
 
 
-@numba.njit(cache=True, error_model="numpy")
+@numba.njit(cache=True, error_model="numpy")  # pragma: no cover - compiled
 def fit_runs(x, y, sqrt_weights, starts, step_factor, floor, bound, data_sum_of_squares, free, tol, max_iter,
-             pivot_tolerance, window, blowup_factor, params, ssr, iterations, status, change):  # pragma: no cover - compiled
+             pivot_tolerance, window, blowup_factor, params, ssr, iterations, status, change):
     """Fit every run; writes params (B, n), ssr, iterations, status and change (B,).
 
     x (k, m); y and sqrt_weights (1 or B, m); starts (B, n); step_factor, data_sum_of_squares (B,);
