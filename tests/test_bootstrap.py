@@ -378,4 +378,4 @@ def test_figures_are_written_for_a_single_parameter_without_pairs(tmp_path):
                       names=("rate",))
     result = run_bootstrap(problem, best_fit(problem, [0.8]), samples=200, seed=1)
     paths = write_figures(result, tmp_path)
-    assert [path.name for path in paths] == ["bootstrap-histograms.png", "bootstrap-histograms.pdf"]
+    assert [path.name for path in paths] == ["bootstrap-histograms.png"]

@@ -6,6 +6,7 @@ numpy/scipy; never a number the sweep produced before.
 """
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -239,13 +240,19 @@ def test_same_result_with_one_or_two_jobs_and_on_a_dask_cluster(write_scenario, 
     assert dictionary(one) == dictionary(two) == dictionary(remote)
 
 
-def test_figures_are_written(twin_folder, tmp_path):
+def test_figures_are_drawn_once_per_result_and_as_pdf_only_when_asked(twin_folder, tmp_path):
     _, result = sweep(twin_folder)
     paths = write_figures(result, tmp_path / "figures")
-    names = {path.name for path in paths}
-    for stem in ("sweep-outcomes", "sweep-basins-a-b", "sweep-iterations-a-b", "sweep-cases", "sweep-cases-map-a-b"):
-        assert f"{stem}.png" in names and f"{stem}.pdf" in names
+    stems = ("sweep-outcomes", "sweep-basins-a-b", "sweep-iterations-a-b", "sweep-cases", "sweep-cases-map-a-b")
+    assert sorted(path.name for path in paths) == sorted(f"{stem}.png" for stem in stems)
     assert all(path.stat().st_size > 1000 for path in paths)
+    drawn = [path.stat().st_mtime_ns for path in paths]
+    # A cached rerun's result differs only in its bookkeeping (chunks reused), which no figure shows.
+    rerun = dataclasses.replace(result, chunks={**result.chunks, "reused": result.chunks["total"], "computed": 0})
+    assert write_figures(result, tmp_path / "figures") == write_figures(rerun, tmp_path / "figures") == paths
+    assert [path.stat().st_mtime_ns for path in paths] == drawn   # not drawn again
+    with_pdf = write_figures(result, tmp_path / "figures", formats=("png", "pdf"))
+    assert sorted(path.name for path in with_pdf) == sorted(f"{stem}.{kind}" for stem in stems for kind in ("png", "pdf"))
 
 
 def test_command_writes_json_and_figures(twin_folder, tmp_path, capsys):

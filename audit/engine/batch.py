@@ -18,6 +18,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..jsonable import jsonable
+from .compiled import compiled_applies, fit_compiled
 from .iterate import Runs, run_block
 from .outcomes import Outcome, outcome_counts, outcome_labels
 from .problem import Problem
@@ -131,6 +132,9 @@ def fit_batch(
 
     Raises:
         InputError: for arguments of the wrong shape or out of range.
+
+    A problem with a compiled loop (formula models) fits large Gauss-Newton batches through it
+    and leaves the awkward runs to the numpy path (``engine.compiled``); the results agree.
     """
     runs = _validated_runs(problem, starts, step_factor, y, x, weights, free, method, tol, max_iter, history)
     count, n = runs.starts.shape
@@ -145,10 +149,14 @@ def fit_batch(
         method=method,
         history=np.full((count, history, n), np.nan) if history else None,
     )
+    remaining = None
+    if compiled_applies(problem, runs, method, history):
+        remaining = fit_compiled(problem, runs, result, tol, max_iter)
+    if remaining is None:
+        remaining = np.arange(count)
     size = block_size(problem, len(runs.free))
-    for first in range(0, count, size):
-        block = np.arange(first, min(first + size, count))
-        run_block(problem, runs, block, result, method, tol, max_iter, history)
+    for first in range(0, len(remaining), size):
+        run_block(problem, runs, remaining[first : first + size], result, method, tol, max_iter, history)
     return result
 
 

@@ -10,7 +10,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 from ..errors import InputError
 from ..jsonable import jsonable
@@ -113,6 +112,8 @@ def estimate(problem: Problem, params: np.ndarray, confidence: float = 0.95) -> 
         covariance = variance * inverse
         std_errors = np.sqrt(np.diag(covariance))
         correlation = covariance / np.outer(std_errors, std_errors)
+    from scipy import stats   # here, not at the top: scipy.stats takes seconds to import
+
     t_quantile = float(stats.t.ppf(0.5 + confidence / 2, dof))
     return Estimates(
         names=problem.names, params=params, ssr=ssr, dof=dof, residual_sd=float(np.sqrt(variance)),

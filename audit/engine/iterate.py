@@ -158,7 +158,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         weighted, ssr = residual(state.params)
         state.add("weighted", weighted)
         state.add("ssr", ssr)
-        total = _total_sum_of_squares(runs, block)
+        total = total_sum_of_squares(runs, block)
         state.add("blowup", SSR_BLOWUP * np.maximum(ssr, total))
         state.add("data_norm", np.sqrt(total))
         remember(0)
@@ -190,7 +190,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         finish(np.ones(len(state), dtype=bool), Outcome.STALLED, max_iter)
 
 
-def _total_sum_of_squares(runs: Runs, block: np.ndarray) -> np.ndarray:
+def total_sum_of_squares(runs: Runs, block: np.ndarray) -> np.ndarray:
     """(len(block),) weighted sum of squares of the observations: the SSR of a zero model."""
     obs = runs.y if runs.y.ndim == 1 else runs.y[block]
     if runs.sqrt_weights is not None:

@@ -58,6 +58,9 @@ class Problem:
             of the relative-change test and the difference steps. Scenarios set it from the
             parameter ranges; without it each run uses the size of its own start.
         formula: optional text of the model formula (for reports and derivative checks).
+        kernel: optional ``kernel() -> loop or None``: the compiled Gauss-Newton loop of
+            ``kernel_loop`` for this model (formula models), or None where it cannot be had;
+            ``fit_batch`` then takes the compiled path where it applies (see ``compiled``).
     """
 
     model: Callable[..., np.ndarray]
@@ -68,6 +71,7 @@ class Problem:
     weights: np.ndarray | None = None
     typical: np.ndarray | None = None
     formula: str | None = None
+    kernel: Callable[[], Callable | None] | None = None
     sqrt_weights: np.ndarray | None = field(init=False, repr=False)
 
     def __post_init__(self) -> None:

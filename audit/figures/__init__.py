@@ -1,6 +1,8 @@
 """Figures of every stage, drawn with matplotlib from the stages' result objects only.
 
-Each stage has a module here with ``write_figures(result, folder) -> list[Path]``; none of
-them recomputes anything. ``style`` holds the shared look: colours, markers and hatches that
+Each stage has a module here with ``write_figures(result, folder, formats=("png",)) ->
+list[Path]``; none of them recomputes anything. PDF is drawn only where a report asks for it
+(``formats=("png", "pdf")``), and a result whose figures are already in the folder is not drawn
+again (``drawn_once``). ``style`` holds the shared look: colours, markers and hatches that
 stay apart in greyscale.
 """

@@ -17,6 +17,7 @@ from matplotlib.lines import Line2D
 from scipy import stats
 
 from ..uncertainty.bootstrap import BootstrapResult
+from .drawn_once import drawn_once
 from .style import ASYMPTOTIC, EMPIRICAL, plt, save
 
 #: Pairs plots show at most this many parameters (the first ones), so panels stay readable.
@@ -32,19 +33,21 @@ ESTIMATE_COLOUR = "#000000"
 DENSITY_MAP = LinearSegmentedColormap.from_list("replicate_density", ["#ffffff", EMPIRICAL])
 
 
-def write_figures(result: BootstrapResult, folder: Path) -> list[Path]:
+@drawn_once()
+def write_figures(result: BootstrapResult, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
     """Draw the histograms and (for two or more parameters) the pairs plot into ``folder``.
 
     Returns:
-        The files written (PNG and PDF of each figure); none when no replicate was usable.
+        The files written (one per figure and format; PNG unless a report asks for PDF too); none
+        when no replicate was usable.
     """
     folder = Path(folder)
     used = result.replicates.params[result.replicates.used]
     if len(used) < 2 or not np.all(np.isfinite(result.std_error)):
         return []
-    paths = _histograms(result, used, folder)
+    paths = _histograms(result, used, folder, formats)
     if len(result.names) >= 2:
-        paths += _pairs(result, used, folder)
+        paths += _pairs(result, used, folder, formats)
     return paths
 
 
@@ -53,7 +56,7 @@ def _headline(result: BootstrapResult) -> str:
             f"{result.confidence:.0%} intervals, step factor {result.refit.step_factor:g}")
 
 
-def _histograms(result: BootstrapResult, used: np.ndarray, folder: Path) -> list[Path]:
+def _histograms(result: BootstrapResult, used: np.ndarray, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     n = len(result.names)
     columns = min(n, 3)
     rows = math.ceil(n / columns)
@@ -74,7 +77,7 @@ def _histograms(result: BootstrapResult, used: np.ndarray, folder: Path) -> list
     ]
     figure.legend(handles=handles, loc="outside lower center", ncols=4, frameon=False, fontsize="small")
     figure.suptitle(_headline(result), fontsize="medium")
-    return save(figure, folder, "bootstrap-histograms")
+    return save(figure, folder, "bootstrap-histograms", formats)
 
 
 def _histogram_panel(ax, result: BootstrapResult, values: np.ndarray, j: int, kinds: list[str]) -> None:
@@ -109,7 +112,7 @@ def _histogram_panel(ax, result: BootstrapResult, values: np.ndarray, j: int, ki
     ax.set_title(f"{title}\n{flagged}", fontsize="small", fontweight="bold" if kinds else "normal")
 
 
-def _pairs(result: BootstrapResult, used: np.ndarray, folder: Path) -> list[Path]:
+def _pairs(result: BootstrapResult, used: np.ndarray, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     shown = min(len(result.names), MAX_PAIR_PARAMETERS)
     size = shown - 1
     width = max(PANEL_SIZE * size + 0.6, MIN_PAIRS_WIDTH)
@@ -138,7 +141,7 @@ def _pairs(result: BootstrapResult, used: np.ndarray, folder: Path) -> list[Path
                   fontsize="small")
     note = "" if shown == len(result.names) else f" (first {shown} of {len(result.names)} parameters)"
     figure.suptitle(_headline(result).replace(": ", ":\n", 1) + note, fontsize="medium")
-    return save(figure, folder, "bootstrap-pairs")
+    return save(figure, folder, "bootstrap-pairs", formats)
 
 
 def _pair_panel(ax, result: BootstrapResult, used: np.ndarray, first: int, second: int) -> None:

@@ -19,6 +19,7 @@ import numpy as np
 from matplotlib.colors import LinearSegmentedColormap
 
 from ..derivatives.check import CENTRAL_POOR, REL_FLOOR, DerivativeAudit
+from .drawn_once import drawn_once
 from .style import EMPIRICAL, OUTCOME_STYLE, plt, save
 
 HAND_COLOUR = OUTCOME_STYLE["oscillating"][0]
@@ -30,17 +31,18 @@ ERROR_MAP = LinearSegmentedColormap.from_list("fitaudit_error", ["#f4f1ea", "#9f
 SMALLEST, LARGEST = -16, 0
 
 
-def write_figures(result: DerivativeAudit, folder: Path) -> list[Path]:
-    """Write the audit's figures (PNG and PDF) into ``folder``; returns the paths written."""
+@drawn_once()
+def write_figures(result: DerivativeAudit, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
+    """Write the audit's figures into ``folder`` in each of ``formats``; returns the paths written."""
     folder = Path(folder)
     paths = []
     if result.hand is not None:
-        paths += _columns(result, folder)
-    paths += _points(result, folder)
+        paths += _columns(result, folder, formats)
+    paths += _points(result, folder, formats)
     return paths
 
 
-def _columns(result: DerivativeAudit, folder: Path) -> list[Path]:
+def _columns(result: DerivativeAudit, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     n = len(result.names)
     across = min(n, 3)
     down = math.ceil(n / across)
@@ -54,7 +56,7 @@ def _columns(result: DerivativeAudit, folder: Path) -> list[Path]:
     reference = "exact (from the formula)" if result.reference == "exact" else "numeric (numdifftools)"
     figure.suptitle(f"Hand-derived partial derivatives against the {reference} ones, at each column's worst point",
                     fontsize=11)
-    return save(figure, folder, "derivatives-columns")
+    return save(figure, folder, "derivatives-columns", formats)
 
 
 def _column_panel(result: DerivativeAudit, j: int, upper, lower) -> None:
@@ -116,7 +118,7 @@ def _abscissa(result: DerivativeAudit) -> tuple[np.ndarray, str]:
     return np.arange(result.x_rows.shape[1], dtype=float), "observation"
 
 
-def _points(result: DerivativeAudit, folder: Path) -> list[Path]:
+def _points(result: DerivativeAudit, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     hand = result.hand is not None
     errors = result.relative_error if hand else result.central_error
     count, n = errors.shape
@@ -154,4 +156,4 @@ def _points(result: DerivativeAudit, folder: Path) -> list[Path]:
     colourbar = figure.colorbar(image, ax=axes, shrink=0.8)
     colourbar.set_label("log10(largest |difference| / column size)", fontsize=8)
     colourbar.ax.axhline(math.log10(line), color=WRONG_COLOUR, linewidth=2)
-    return save(figure, folder, "derivatives-points")
+    return save(figure, folder, "derivatives-points", formats)

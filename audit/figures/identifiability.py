@@ -18,6 +18,7 @@ from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 from ..identifiability.analysis import Identifiability
 from ..identifiability.profiles import NOT_WALKED
+from .drawn_once import drawn_once
 from .style import ASYMPTOTIC, EMPIRICAL, plt, save
 
 #: Negative → zero → positive, dark to light to dark so that the sign also shows in the cell text.
@@ -33,14 +34,15 @@ LOG_AXIS_SPAN = 10.0
 DIRECTIONS_SHOWN = 3
 
 
-def write_figures(result: Identifiability, folder: Path) -> list[Path]:
-    """Write the stage's figures into ``folder`` (PNG and PDF each); return their paths."""
+@drawn_once()
+def write_figures(result: Identifiability, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
+    """Write the stage's figures into ``folder`` in each of ``formats``; return their paths."""
     folder = Path(folder)
-    paths = _profiles(result, folder)
-    paths += _correlation(result, folder)
-    paths += _weak_directions(result, folder)
+    paths = _profiles(result, folder, formats)
+    paths += _correlation(result, folder, formats)
+    paths += _weak_directions(result, folder, formats)
     if len(result.collinearity.index):
-        paths += _collinearity(result, folder)
+        paths += _collinearity(result, folder, formats)
     return paths
 
 
@@ -54,7 +56,7 @@ def _panels(count: int, width: float = 3.4, height: float = 2.9):
     return figure, axes.flat
 
 
-def _profiles(result: Identifiability, folder: Path) -> list[Path]:
+def _profiles(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     profiles, estimates = result.profiles, result.estimates
     rise = profiles.threshold - profiles.ssr_min
     figure, axes = _panels(len(result.names))
@@ -94,7 +96,7 @@ def _profiles(result: Identifiability, folder: Path) -> list[Path]:
     figure.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncol=6, fontsize=8,
                   frameon=False)
     figure.suptitle("Profile likelihood: SSR with each parameter fixed, the others refitted", fontsize=11)
-    return save(figure, folder, "identifiability-profiles")
+    return save(figure, folder, "identifiability-profiles", formats)
 
 
 def walked_values(profiles, j: int) -> np.ndarray:
@@ -123,7 +125,7 @@ def _profile_interval(axis, profiles, j: int, values: np.ndarray) -> None:
     axis.plot(ends, [level, level], color=EMPIRICAL, linewidth=4, solid_capstyle="butt", alpha=0.85)
 
 
-def _correlation(result: Identifiability, folder: Path) -> list[Path]:
+def _correlation(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     correlation = result.estimates.correlation
     n = len(result.names)
     size = max(3.6, 0.75 * n + 2.2)
@@ -144,10 +146,10 @@ def _correlation(result: Identifiability, folder: Path) -> list[Path]:
     if not np.isfinite(correlation).all():
         title += "\n(— : undefined, the Jacobian is singular)"
     axis.set_title(title, fontsize=11)
-    return save(figure, folder, "identifiability-correlation")
+    return save(figure, folder, "identifiability-correlation", formats)
 
 
-def _weak_directions(result: Identifiability, folder: Path) -> list[Path]:
+def _weak_directions(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     rows = result.weak[:DIRECTIONS_SHOWN]
     n = len(result.names)
     figure, axes = _panels(len(rows), width=4.8, height=max(2.6, 0.45 * n + 1.8))
@@ -166,10 +168,10 @@ def _weak_directions(result: Identifiability, folder: Path) -> list[Path]:
         axis.set_title("\n".join(textwrap.wrap(unbroken, 46)), fontsize=8.5)
     figure.suptitle(f"Weakest parameter combinations\n(scaled condition number {result.condition_scaled:.3g})",
                     fontsize=11)
-    return save(figure, folder, "identifiability-weak-directions")
+    return save(figure, folder, "identifiability-weak-directions", formats)
 
 
-def _collinearity(result: Identifiability, folder: Path) -> list[Path]:
+def _collinearity(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     collinearity = result.collinearity
     figure, axis = plt.subplots(figsize=(6.4, 4.0), constrained_layout=True)
     index = np.where(np.isfinite(collinearity.index), collinearity.index, np.nan)
@@ -201,4 +203,4 @@ def _collinearity(result: Identifiability, folder: Path) -> list[Path]:
                   xytext=(0, 7), ha="center", fontsize=8)
     axis.legend(fontsize=8, frameon=False)
     axis.set_title("Collinearity index of every parameter subset", fontsize=11)
-    return save(figure, folder, "identifiability-collinearity")
+    return save(figure, folder, "identifiability-collinearity", formats)

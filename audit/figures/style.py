@@ -54,7 +54,7 @@ def new_figure(width: float = 6.4, height: float = 4.4):
     return figure, axes
 
 
-def save(figure, folder: Path, stem: str, formats: tuple[str, ...] = ("png", "pdf")) -> list[Path]:
+def save(figure, folder: Path, stem: str, formats: tuple[str, ...] = ("png",)) -> list[Path]:
     """Write ``figure`` as ``folder/stem.<format>`` for each format, close it, return the paths."""
     folder.mkdir(parents=True, exist_ok=True)
     paths = []

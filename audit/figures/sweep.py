@@ -15,6 +15,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
 from ..sweep.result import CATEGORIES, SweepResult
+from .drawn_once import drawn_once
 from .style import OUTCOME_MARKERS, OUTCOME_STYLE, plt, save
 from .sweep_maps import basin_figure, cases_on_map_figure, iteration_figure
 
@@ -25,21 +26,22 @@ FACTOR_LINES = ("-", "--", ":", "-.")
 PATH_MARGIN = 0.5
 
 
-def write_figures(result: SweepResult, folder: Path) -> list[Path]:
-    """Draw every sweep figure into ``folder``; return the files written (PNG and PDF each)."""
+@drawn_once("chunks", "cache")
+def write_figures(result: SweepResult, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
+    """Draw every sweep figure into ``folder`` in each of ``formats``; return the files written."""
     folder = Path(folder)
-    paths = _outcome_bars(result, folder)
+    paths = _outcome_bars(result, folder, formats)
     for basin_map in result.maps:
         for m, method in enumerate(result.methods):
             suffix = f"{basin_map.x_name}-{basin_map.y_name}" + ("" if method == "gn" else f"-{method}")
-            paths += basin_figure(result, basin_map, m, folder, f"sweep-basins-{suffix}")
-            paths += iteration_figure(result, basin_map, m, folder, f"sweep-iterations-{suffix}")
-            paths += cases_on_map_figure(result, basin_map, m, folder, f"sweep-cases-map-{suffix}")
-    paths += _paths_figure(result, folder)
+            paths += basin_figure(result, basin_map, m, folder, f"sweep-basins-{suffix}", formats)
+            paths += iteration_figure(result, basin_map, m, folder, f"sweep-iterations-{suffix}", formats)
+            paths += cases_on_map_figure(result, basin_map, m, folder, f"sweep-cases-map-{suffix}", formats)
+    paths += _paths_figure(result, folder, formats)
     return paths
 
 
-def _outcome_bars(result: SweepResult, folder: Path) -> list[Path]:
+def _outcome_bars(result: SweepResult, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     labels = [f"{factor:g}" + ("" if len(result.methods) == 1 else f"\n{method}")
               for method in result.methods for factor in result.step_factors]
     shares = result.shares.reshape(-1, len(CATEGORIES))
@@ -67,10 +69,10 @@ def _outcome_bars(result: SweepResult, folder: Path) -> list[Path]:
     axes.yaxis.set_major_formatter(plt.FuncFormatter(lambda value, _: f"{value:.0%}"))
     axes.legend(handles=handles[::-1], loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=8, frameon=False)
     axes.set_title(f"how {result.points} starts ended ({result.design} design)", fontsize=10)
-    return save(figure, folder, "sweep-outcomes")
+    return save(figure, folder, "sweep-outcomes", formats)
 
 
-def _paths_figure(result: SweepResult, folder: Path) -> list[Path]:
+def _paths_figure(result: SweepResult, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     cases = [case for case in result.cases if case.source == "design"]
     if not cases:
         return []
@@ -103,7 +105,7 @@ def _paths_figure(result: SweepResult, folder: Path) -> list[Path]:
     figure.suptitle("example failing runs from the design: parameters at each iteration\n"
                     "(a path leaving its panel ran far beyond the range, or to zero or below on a log axis)",
                     fontsize=9)
-    return save(figure, folder, "sweep-cases")
+    return save(figure, folder, "sweep-cases", formats)
 
 
 def _path_limits(axes, result: SweepResult, j: int) -> None:

@@ -131,7 +131,8 @@ def marker_legend() -> list[Line2D]:
                    marker=START["marker"], label="scenario start")]
 
 
-def basin_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path, stem: str) -> list[Path]:
+def basin_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path, stem: str,
+                 formats: tuple[str, ...]) -> list[Path]:
     """One panel per step factor, cells coloured by where the run from them ended."""
     classes, looks = map_classes(result, basin_map, m)
     figure, axes = panel_grid(len(result.step_factors))
@@ -152,10 +153,11 @@ def basin_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path,
                              label=f"safe starting region (≥{result.region_level:.0%} reach the best)"))
     figure.legend(handles=handles, loc="outside lower center", ncol=min(len(handles), 4), fontsize=8, frameon=False)
     figure.suptitle(_heading(result, basin_map, m, "where each start leads"), fontsize=10)
-    return save(figure, folder, stem)
+    return save(figure, folder, stem, formats)
 
 
-def iteration_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path, stem: str) -> list[Path]:
+def iteration_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path, stem: str,
+                     formats: tuple[str, ...]) -> list[Path]:
     """One panel per step factor: iterations taken by runs that reached the best solution."""
     reached = basin_map.category[m] == BEST
     if not reached.any():
@@ -179,10 +181,11 @@ def iteration_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: P
     handles = [Patch(**UNREACHED, linewidth=0.5, label="did not reach the best")]
     figure.legend(handles=handles + marker_legend(), loc="outside lower center", ncol=3, fontsize=8, frameon=False)
     figure.suptitle(_heading(result, basin_map, m, "iterations needed"), fontsize=10)
-    return save(figure, folder, stem)
+    return save(figure, folder, stem, formats)
 
 
-def cases_on_map_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path, stem: str) -> list[Path]:
+def cases_on_map_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path, stem: str,
+                        formats: tuple[str, ...]) -> list[Path]:
     """Failing runs started on the map, their paths drawn over the faded basin map."""
     source = f"map {basin_map.x_name}/{basin_map.y_name}"
     cases = [case for case in result.cases if case.source == source and case.method == result.methods[m]]
@@ -210,7 +213,7 @@ def cases_on_map_figure(result: SweepResult, basin_map: BasinMap, m: int, folder
                       label=f"{OUTCOME_STYLE[kind][2]} (path)") for kind in dict.fromkeys(kinds)]
     figure.legend(handles=handles + marker_legend(), loc="outside lower center", ncol=4, fontsize=8, frameon=False)
     figure.suptitle(_heading(result, basin_map, m, "paths of failing runs (open circle: their start)"), fontsize=10)
-    return save(figure, folder, stem)
+    return save(figure, folder, stem, formats)
 
 
 def _labels(axes, basin_map: BasinMap) -> None:

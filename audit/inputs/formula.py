@@ -1,4 +1,5 @@
-"""Models typed as formulas: exact derivatives by computer algebra, compiled to batched numpy.
+"""Models typed as formulas: exact derivatives by computer algebra, compiled to batched numpy
+(and, where numba is installed, to the engine's compiled Gauss-Newton loop: ``formula_kernel``).
 
 ``compile_formula("A * exp(-k * t) + c", ("A", "k", "c"), ("t",))`` checks the text against the
 whitelist of ``formula_syntax`` (it is never executed), turns it into a sympy expression,
@@ -20,7 +21,11 @@ from collections.abc import Sequence
 import numpy as np
 
 from ..errors import InputError
+from .formula_kernel import load_kernel, numba_available
 from .formula_syntax import check_names, parse_checked, to_sympy
+
+#: Marks a kernel not built yet (None means it cannot be had).
+_NOT_BUILT = object()
 
 
 class CompiledFormula:
@@ -61,6 +66,7 @@ class CompiledFormula:
         self._model = sympy.lambdify(arguments, self.expression, modules="numpy", dummify=True)
         self._jacobian = sympy.lambdify(arguments, list(self.derivatives), modules="numpy", cse=True,
                                         dummify=True)
+        self._kernel = _NOT_BUILT
 
     def __reduce__(self):
         return (compile_formula, (self.text, self.parameter_names, self.predictor_names, self.where))
@@ -84,6 +90,14 @@ class CompiledFormula:
     def jacobian(self, x, *params) -> list:
         """The n partial derivatives, each broadcastable to (B, m) (constants stay scalars)."""
         return list(self._jacobian(*self._predictor_rows(x), *params))
+
+    def gauss_newton_kernel(self):
+        """The compiled Gauss-Newton loop for this formula (built on first use, loaded from the
+        disk cache where another process built it), or None without numba; see ``formula_kernel``."""
+        if self._kernel is _NOT_BUILT:
+            self._kernel = load_kernel(self.expression, self.derivatives, self.parameter_symbols,
+                                       self.predictor_symbols)
+        return self._kernel
 
     def callable_with(self, modules: str):
         """``f(*predictors, *params)`` and ``[df/dp_j](*predictors, *params)`` for another backend.
@@ -133,4 +147,5 @@ def formula_problem_parts(compiled: CompiledFormula) -> dict:
     if compiled.unused_parameters:
         raise InputError(f"{compiled.where}: the formula does not contain the parameter(s) "
                          f"{', '.join(compiled.unused_parameters)}, so the data cannot determine them")
-    return {"model": compiled.model, "jacobian": compiled.jacobian, "formula": compiled.text}
+    return {"model": compiled.model, "jacobian": compiled.jacobian, "formula": compiled.text,
+            "kernel": compiled.gauss_newton_kernel if numba_available() else None}

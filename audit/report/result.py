@@ -25,6 +25,8 @@ from .verdict import Verdict
 
 AUDIT_FILE = "audit.json"
 FIGURES = "figures"
+#: The appendix needs both: PNG for HTML and Markdown, PDF for the LaTeX fragment.
+BOTH_FORMATS = ("png", "pdf")
 
 
 @dataclass
@@ -85,25 +87,26 @@ class AuditResult:
         })
 
     def write_figures(self, folder: Path) -> list[Path]:
-        """Every figure of the stages that ran, PNG and PDF, into ``folder``; the paths written."""
+        """Every figure of the stages that ran, PNG (HTML, Markdown) and PDF (LaTeX), into ``folder``;
+        the paths written."""
         scenario = self.scenario
         paths: list[Path] = []
         if self.asymptotic is not None:
             paths += fit_figure.write_figure(scenario.problem, self.asymptotic, folder,
                                              x_label=scenario.x_names[0], y_label=scenario.y_name)
         if self.derivatives is not None:
-            paths += derivative_figures.write_figures(self.derivatives, folder)
+            paths += derivative_figures.write_figures(self.derivatives, folder, BOTH_FORMATS)
         if self.sweep is not None:
-            paths += sweep_figures.write_figures(self.sweep, folder)
+            paths += sweep_figures.write_figures(self.sweep, folder, BOTH_FORMATS)
         if self.bootstrap is not None:
-            paths += bootstrap_figures.write_figures(self.bootstrap, folder)
+            paths += bootstrap_figures.write_figures(self.bootstrap, folder, BOTH_FORMATS)
         if self.identifiability is not None:
-            paths += identifiability_figures.write_figures(self.identifiability, folder)
+            paths += identifiability_figures.write_figures(self.identifiability, folder, BOTH_FORMATS)
         if self.residuals is not None:
             problem = scenario.problem
             fitted = problem.predict(self.best_fit.params[None, :])[0]
             x = problem.x if problem.x.ndim == 1 else problem.x.T
-            paths += residual_figures.write_figures(self.residuals, x, fitted, folder, formats=("png", "pdf"),
+            paths += residual_figures.write_figures(self.residuals, x, fitted, folder, formats=BOTH_FORMATS,
                                                     x_label=scenario.x_names[0])
         return paths
 

@@ -26,7 +26,6 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import qmc
 
 from ..errors import InputError
 from .permutation import keyed_permutation, permutation_keys
@@ -169,6 +168,8 @@ class StartDesign:
         return unit
 
     def _sobol_unit(self, first: int, stop: int) -> np.ndarray:
+        from scipy.stats import qmc   # here: scipy.stats takes seconds to import, a cached rerun needs none
+
         engine = qmc.Sobol(self.space.n_params, scramble=True, rng=np.random.default_rng(self.sobol_seed))
         if first:
             engine.fast_forward(first)

@@ -1,0 +1,47 @@
+"""The command line imports only what the command being run uses."""
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from audit import cli
+
+ROOT = Path(__file__).resolve().parents[1]
+#: Libraries that take seconds to import between them (python -X importtime, common practice
+#: for measuring import cost) and that the overview of the commands never uses.
+HEAVY = ("matplotlib", "scipy", "sympy", "numba", "joblib", "numdifftools", "dask", "rich", "numpy")
+
+
+def modules_loaded_by(*argv: str) -> set[str]:
+    """Top-level packages in sys.modules after ``fitaudit ARGV`` in a fresh interpreter."""
+    script = ("import json, sys\nfrom audit.cli import main\n"
+              f"try:\n    main({list(argv)!r})\nexcept SystemExit:\n    pass\n"
+              "print(json.dumps(sorted({name.split('.')[0] for name in sys.modules})))\n")
+    done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, capture_output=True, text=True, check=True)
+    return set(json.loads(done.stdout.splitlines()[-1]))
+
+
+def test_the_overview_of_the_commands_loads_no_heavy_library():
+    assert modules_loaded_by("--help").isdisjoint(HEAVY)
+
+
+def test_a_command_loads_its_own_module_and_no_other_command():
+    script = ("import sys\nfrom audit.cli import main\n"
+              "try:\n    main(['check', '--help'])\nexcept SystemExit:\n    pass\n"
+              "print(sorted(name for name in sys.modules if name.startswith('audit.cli.')))\n")
+    done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, capture_output=True, text=True, check=True)
+    loaded = done.stdout.splitlines()[-1]
+    assert "audit.cli.check" in loaded
+    assert not any(f"audit.cli.{name}'" in loaded for name in cli.COMMANDS if name != "check")
+
+
+@pytest.mark.parametrize("name", sorted(cli.COMMANDS))
+def test_each_summary_in_the_overview_is_the_one_its_command_registers(name):
+    parser = cli.build_parser(name)
+    choices = parser._subparsers._group_actions[0]._choices_actions
+    registered = {action.dest: action.help for action in choices}
+    assert registered[name] == cli.COMMANDS[name]
