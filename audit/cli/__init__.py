@@ -29,6 +29,9 @@ COMMANDS = {
     "bootstrap": "bootstrap intervals beside the asymptotic ones, with failed refits",
     "identify": "check that the data determine every parameter",
 }
+#: Command modules named otherwise than their command: a submodule called ``list`` would become
+#: this package's attribute ``list`` once imported and hide the builtin here.
+MODULE_OF = {"list": "listing"}
 
 DESCRIPTION = """\
 fitaudit audits a nonlinear least-squares fit before you trust, publish or hand it over:
@@ -51,7 +54,7 @@ def build_parser(chosen: str | None = None) -> argparse.ArgumentParser:
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", title="commands")
     for name, summary in COMMANDS.items():
         if chosen is None or name == chosen:
-            importlib.import_module(f"{__name__}.{name}").register(subparsers)
+            importlib.import_module(f"{__name__}.{MODULE_OF.get(name, name)}").register(subparsers)
         else:
             subparsers.add_parser(name, help=summary)
     return parser
