@@ -39,8 +39,13 @@ CURVE_TOLERANCE = 1e-3
 CURVE_FLOOR = 1e-9
 
 
-class _ShapeMismatch(Exception):
-    """The model's output cannot be broadcast to (B, m): a defect of the model, not of a run."""
+class _ShapeMismatch(ValueError):
+    """The model's output cannot be broadcast to (B, m) for the runs it was given.
+
+    A failure of those runs like any exception the model raises: a model can return the right
+    shape at most parameters and the wrong one at a few (a branch that drops an axis). A model
+    that has the wrong shape everywhere is refused when its scenario is loaded.
+    """
 
 
 @dataclass(frozen=True, eq=False)
@@ -152,11 +157,9 @@ class Problem:
             x: per-run or shared predictors; ``None`` uses the problem's own.
 
         Returns:
-            (B, m) values. Rows of runs where the model raised are all NaN; non-finite model
-            values are passed through for the caller to classify.
-
-        Raises:
-            InputError: when the model's output can never have shape (B, m).
+            (B, m) values. Rows of runs where the model raised, or returned a shape that does not
+            broadcast to (B, m), are all NaN; non-finite model values are passed through for the
+            caller to classify.
         """
         params = np.asarray(params, dtype=float)
         x = self.x if x is None else x
@@ -281,6 +284,10 @@ class Problem:
 
 
 def _broadcast_runs(values: np.ndarray, shape: tuple[int, int], what: str) -> np.ndarray:
+    # A 1-D output is one value per observation; one per run, (B,), is the usual slip, and for a
+    # single run its (1,) would broadcast silently into a constant.
+    if values.ndim == 1 and values.shape[0] != shape[1]:
+        raise _ShapeMismatch(f"{what} returned shape {values.shape}; expected {shape} (runs, observations)")
     try:
         return np.broadcast_to(values, shape)
     except ValueError:
@@ -294,15 +301,12 @@ def _isolate_failures(call, params: np.ndarray, x: np.ndarray, problem: Problem,
     """Evaluate ``call`` on all runs; if it raises, bisect to find the runs that make it raise.
 
     ``call`` returns one (B, m) array (``width`` None) or a list of ``width`` such arrays. Only
-    the error path recurses; a model that works is called once. A wrong output shape is a
-    defect of the model as a whole and is reported, not bisected. Runs whose evaluation raised
-    get NaN.
+    the error path recurses; a model that works is called once. Runs whose evaluation raised, or
+    gave output of the wrong shape, get NaN.
     """
     try:
         with np.errstate(all="ignore"):
             return call(params, x)
-    except _ShapeMismatch as error:
-        raise InputError(str(error)) from None
     except (Exception, SystemExit):
         # sys.exit() inside a model is a failure of those runs, not the end of the audit.
         if params.shape[0] == 1:

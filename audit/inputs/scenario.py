@@ -17,7 +17,7 @@ import numpy as np
 
 from ..engine.problem import Problem
 from ..errors import InputError
-from .data_file import read_measurements
+from .data_file import Measurements, read_measurements
 from .formula import check_formula, compile_formula, formula_problem_parts
 from .model_file import describe_model_error, load_model_module
 from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, IdentifiabilitySettings, SolverSettings,
@@ -157,6 +157,7 @@ def load_scenario(path: Path | str) -> Scenario:
     parameters = tuple(_parameter(name, table[name], guessed.get(name), source, warnings) for name in names)
 
     weights = None if measurements.sigma is None else 1.0 / measurements.sigma**2
+    _check_squares_fit(measurements, data_path, y_name, sigma_name)
     if measurements.y.size < len(names):
         raise InputError(f"{data_path}: {measurements.y.size} usable observations for {len(names)} parameters; "
                          "at least as many observations as parameters are needed")
@@ -274,6 +275,21 @@ def _parameter(name: str, entry, guessed: float | None, source: str, warnings: l
     return Parameter(name=name, start=float(start), lower=lower, upper=upper, axis=axis)
 
 
+def _check_squares_fit(measurements: Measurements, data_path: Path, y_column: str, sigma_column: str | None) -> None:
+    """Refuse observations whose sum of squares overflows double precision (about 1.8e308).
+
+    A fit near such data would have a residual sum of squares of the same size, which cannot be
+    formed; every run would end as a model error for what is only a matter of units.
+    """
+    weighted = measurements.y if measurements.sigma is None else measurements.y / measurements.sigma
+    with np.errstate(over="ignore"):
+        total = np.sum(weighted**2)
+    if not np.isfinite(total):
+        what = f"'{y_column}'" if sigma_column is None else f"'{y_column}' divided by '{sigma_column}'"
+        raise InputError(f"{data_path}: column {what} reaches {np.max(np.abs(weighted)):.3g}; its sum of squares "
+                         "overflows double precision, so no fit can be judged; rescale the column (other units)")
+
+
 def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> None:
     """Evaluate the model (and hand-derived Jacobian) once at the start and explain failures."""
     point = start[None, :]
@@ -289,6 +305,9 @@ def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> No
             raise InputError(describe_model_error(error, path, "evaluating at the starting values")) from None
         parts = list(output.values()) if isinstance(output, dict) else (
             [output] if role == "model" else list(output) if isinstance(output, (list, tuple)) else [output])
+        if role == "jacobian" and len(parts) != problem.n_params:
+            raise InputError(f"{path}: jacobian returned {len(parts)} arrays for {problem.n_params} parameters "
+                             f"at the starting values ({function.__name__}()); expected one per parameter")
         for part in parts:
             array = np.asarray(part)
             if array.dtype.kind not in "biuf":
@@ -296,6 +315,8 @@ def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> No
                 raise InputError(f"{path}: {function.__name__}() returned {type(part).__name__} of dtype "
                                  f"{array.dtype} at the starting values; expected real numbers")
             try:
+                if array.ndim == 1 and array.shape[0] != problem.n_obs:
+                    raise ValueError("one value per run, not per observation")
                 np.broadcast_to(array, expected)
             except ValueError:
                 raise InputError(
