@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputError
+from .time_limit import ModelTimeout, time_limit
 
 #: Relative step of the central differences: the cube root of machine epsilon balances the
 #: truncation error (O(h^2)) against rounding (O(eps / h)).
@@ -63,6 +64,9 @@ class Problem:
             of the relative-change test and the difference steps. Scenarios set it from the
             parameter ranges; without it each run uses the size of its own start.
         formula: optional text of the model formula (for reports and derivative checks).
+        time_limit: optional seconds one batched model or Jacobian call may take; runs whose
+            call does not return in time are treated like runs that make the model raise
+            (``engine.time_limit`` says where the limit can be applied).
     """
 
     model: Callable[..., np.ndarray]
@@ -73,6 +77,7 @@ class Problem:
     weights: np.ndarray | None = None
     typical: np.ndarray | None = None
     formula: str | None = None
+    time_limit: float | None = None
     sqrt_weights: np.ndarray | None = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
@@ -100,6 +105,8 @@ class Problem:
             if typical.shape != (len(self.names),) or not np.all(typical > 0):
                 raise InputError("typical magnitudes must be positive, one per parameter")
             object.__setattr__(self, "typical", typical)
+        if self.time_limit is not None and not 0 < self.time_limit < np.inf:
+            raise InputError(f"the time limit of a model call must be a positive number of seconds, got {self.time_limit}")
 
     @property
     def n_params(self) -> int:
@@ -301,13 +308,14 @@ def _isolate_failures(call, params: np.ndarray, x: np.ndarray, problem: Problem,
     """Evaluate ``call`` on all runs; if it raises, bisect to find the runs that make it raise.
 
     ``call`` returns one (B, m) array (``width`` None) or a list of ``width`` such arrays. Only
-    the error path recurses; a model that works is called once. Runs whose evaluation raised, or
-    gave output of the wrong shape, get NaN.
+    the error path recurses; a model that works is called once. Runs whose evaluation raised,
+    gave output of the wrong shape or ran past the time limit get NaN (a batch too large to finish
+    in time is split too, so a slow but finite model only costs time).
     """
     try:
-        with np.errstate(all="ignore"):
+        with np.errstate(all="ignore"), time_limit(problem.time_limit):
             return call(params, x)
-    except (Exception, SystemExit):
+    except (Exception, SystemExit, ModelTimeout):
         # sys.exit() inside a model is a failure of those runs, not the end of the audit.
         if params.shape[0] == 1:
             missing = np.full((1, problem.n_obs), np.nan)

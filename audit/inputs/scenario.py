@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from ..engine.problem import Problem
+from ..engine.time_limit import ModelTimeout, time_limit
 from ..errors import InputError
 from .data_file import Measurements, read_measurements
 from .formula import check_formula, compile_formula, formula_problem_parts
@@ -26,7 +27,7 @@ from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, Identifi
 SCENARIO_FILE = "scenario.toml"
 TOP_KEYS = ("title", "description", "data", "model", "parameters", *SECTIONS)
 DATA_KEYS = ("file", "x", "y", "sigma", "drop_nonfinite", "delimiter")
-MODEL_KEYS = ("file", "function", "jacobian", "guess", "expression", "formula")
+MODEL_KEYS = ("file", "function", "jacobian", "guess", "expression", "formula", "time_limit")
 PARAMETER_KEYS = ("start", "range", "scale")
 AXES = ("linear", "log")
 
@@ -164,7 +165,8 @@ def load_scenario(path: Path | str) -> Scenario:
     if measurements.y.size == len(names):
         warnings.append(f"{data_path}: as many observations as parameters: no degrees of freedom for uncertainties")
     problem = Problem(model=model, x=measurements.x, y=measurements.y, names=names, jacobian=jacobian,
-                      weights=weights, typical=np.array([p.typical for p in parameters]), formula=formula)
+                      weights=weights, typical=np.array([p.typical for p in parameters]), formula=formula,
+                      time_limit=_time_limit(model_table, source))
     _check_model_at_start(problem, np.array([p.start for p in parameters]), model_path or toml_path)
 
     sections = {name: read_section(name, config.get(name, {}), source) for name in SECTIONS}
@@ -226,6 +228,16 @@ def _model(table: dict, folder: Path, source: str, x_names: tuple[str, ...], par
         check_formula(formula, module.parameter_names, x_names, where=f"{source} [model] formula")
     return (module.model, module.jacobian, module.guess, module.parameter_names, module.path, formula,
             module.digest)
+
+
+def _time_limit(table: dict, source: str) -> float | None:
+    """[model] time_limit: seconds one batched model call may take (absent: no limit)."""
+    seconds = table.get("time_limit")
+    if seconds is None:
+        return None
+    if isinstance(seconds, bool) or not isinstance(seconds, (int, float)) or not 0 < seconds < math.inf:
+        raise InputError(f"{source} [model] time_limit: must be a positive number of seconds, got {seconds!r}")
+    return float(seconds)
 
 
 def _guessed_starts(guess, measurements, model_path, names, table, source) -> dict[str, float]:
@@ -299,8 +311,11 @@ def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> No
         if function is None:
             continue
         try:
-            with np.errstate(all="ignore"):
+            with np.errstate(all="ignore"), time_limit(problem.time_limit):
                 output = function(problem.x, *columns)
+        except ModelTimeout:
+            raise InputError(f"{path}: {function.__name__}() did not return within [model] time_limit = "
+                             f"{problem.time_limit:g} s at the starting values") from None
         except (Exception, SystemExit) as error:
             raise InputError(describe_model_error(error, path, "evaluating at the starting values")) from None
         parts = list(output.values()) if isinstance(output, dict) else (
