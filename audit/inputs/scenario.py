@@ -10,6 +10,7 @@ from __future__ import annotations
 import hashlib
 import math
 import tomllib
+import unicodedata
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -145,6 +146,11 @@ def load_scenario(path: Path | str) -> Scenario:
         model_table, folder, source, x_names, tuple(config["parameters"]))
     table = config["parameters"]
     for name in table:
+        if name not in names and unicodedata.normalize("NFKC", name) in names:
+            # Python reads identifiers in NFKC form, so the model's argument is not spelled as written.
+            raise InputError(f"{source} [parameters] '{name}': Python reads this name as "
+                             f"'{unicodedata.normalize('NFKC', name)}' (identifiers are NFKC-normalised); "
+                             "write it that way in [parameters]")
         if name not in names:
             raise InputError(f"{source} [parameters] '{name}' is not a parameter of the model"
                              f"{nearest(name, names)}; the model takes: {', '.join(names)}")
