@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputError
+from .time_limit import ModelTimeout, time_limit
 
 #: Relative step of the central differences: the cube root of machine epsilon balances the
 #: truncation error (O(h^2)) against rounding (O(eps / h)).
@@ -39,8 +40,13 @@ CURVE_TOLERANCE = 1e-3
 CURVE_FLOOR = 1e-9
 
 
-class _ShapeMismatch(Exception):
-    """The model's output cannot be broadcast to (B, m): a defect of the model, not of a run."""
+class _ShapeMismatch(ValueError):
+    """The model's output cannot be broadcast to (B, m) for the runs it was given.
+
+    A failure of those runs like any exception the model raises: a model can return the right
+    shape at most parameters and the wrong one at a few (a branch that drops an axis). A model
+    that has the wrong shape everywhere is refused when its scenario is loaded.
+    """
 
 
 @dataclass(frozen=True, eq=False)
@@ -61,6 +67,9 @@ class Problem:
         kernel: optional ``kernel() -> loop or None``: the compiled Gauss-Newton loop of
             ``kernel_loop`` for this model (formula models), or None where it cannot be had;
             ``fit_batch`` then takes the compiled path where it applies (see ``compiled``).
+        time_limit: optional seconds one batched model or Jacobian call may take; runs whose
+            call does not return in time are treated like runs that make the model raise
+            (``engine.time_limit`` says where the limit can be applied).
     """
 
     model: Callable[..., np.ndarray]
@@ -72,6 +81,7 @@ class Problem:
     typical: np.ndarray | None = None
     formula: str | None = None
     kernel: Callable[[], Callable | None] | None = None
+    time_limit: float | None = None
     sqrt_weights: np.ndarray | None = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
@@ -99,6 +109,8 @@ class Problem:
             if typical.shape != (len(self.names),) or not np.all(typical > 0):
                 raise InputError("typical magnitudes must be positive, one per parameter")
             object.__setattr__(self, "typical", typical)
+        if self.time_limit is not None and not 0 < self.time_limit < np.inf:
+            raise InputError(f"the time limit of a model call must be a positive number of seconds, got {self.time_limit}")
 
     @property
     def n_params(self) -> int:
@@ -156,11 +168,9 @@ class Problem:
             x: per-run or shared predictors; ``None`` uses the problem's own.
 
         Returns:
-            (B, m) values. Rows of runs where the model raised are all NaN; non-finite model
-            values are passed through for the caller to classify.
-
-        Raises:
-            InputError: when the model's output can never have shape (B, m).
+            (B, m) values. Rows of runs where the model raised, or returned a shape that does not
+            broadcast to (B, m), are all NaN; non-finite model values are passed through for the
+            caller to classify.
         """
         params = np.asarray(params, dtype=float)
         x = self.x if x is None else x
@@ -285,6 +295,10 @@ class Problem:
 
 
 def _broadcast_runs(values: np.ndarray, shape: tuple[int, int], what: str) -> np.ndarray:
+    # A 1-D output is one value per observation; one per run, (B,), is the usual slip, and for a
+    # single run its (1,) would broadcast silently into a constant.
+    if values.ndim == 1 and values.shape[0] != shape[1]:
+        raise _ShapeMismatch(f"{what} returned shape {values.shape}; expected {shape} (runs, observations)")
     try:
         return np.broadcast_to(values, shape)
     except ValueError:
@@ -298,16 +312,14 @@ def _isolate_failures(call, params: np.ndarray, x: np.ndarray, problem: Problem,
     """Evaluate ``call`` on all runs; if it raises, bisect to find the runs that make it raise.
 
     ``call`` returns one (B, m) array (``width`` None) or a list of ``width`` such arrays. Only
-    the error path recurses; a model that works is called once. A wrong output shape is a
-    defect of the model as a whole and is reported, not bisected. Runs whose evaluation raised
-    get NaN.
+    the error path recurses; a model that works is called once. Runs whose evaluation raised,
+    gave output of the wrong shape or ran past the time limit get NaN (a batch too large to finish
+    in time is split too, so a slow but finite model only costs time).
     """
     try:
-        with np.errstate(all="ignore"):
+        with np.errstate(all="ignore"), time_limit(problem.time_limit):
             return call(params, x)
-    except _ShapeMismatch as error:
-        raise InputError(str(error)) from None
-    except (Exception, SystemExit):
+    except (Exception, SystemExit, ModelTimeout):
         # sys.exit() inside a model is a failure of those runs, not the end of the audit.
         if params.shape[0] == 1:
             missing = np.full((1, problem.n_obs), np.nan)

@@ -10,15 +10,17 @@ from __future__ import annotations
 import hashlib
 import math
 import tomllib
+import unicodedata
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from ..engine.problem import Problem
+from ..engine.time_limit import ModelTimeout, time_limit
 from ..errors import InputError
 from .bundled import SCENARIO_FILE, resolve_scenario
-from .data_file import read_measurements
+from .data_file import Measurements, read_measurements
 from .formula import check_formula, compile_formula, formula_problem_parts
 from .model_file import describe_model_error, load_model_module
 from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, IdentifiabilitySettings, SolverSettings,
@@ -26,7 +28,7 @@ from .settings import (SECTIONS, BootstrapSettings, DerivativeSettings, Identifi
 
 TOP_KEYS = ("title", "description", "data", "model", "parameters", *SECTIONS)
 DATA_KEYS = ("file", "x", "y", "sigma", "drop_nonfinite", "delimiter")
-MODEL_KEYS = ("file", "function", "jacobian", "guess", "expression", "formula")
+MODEL_KEYS = ("file", "function", "jacobian", "guess", "expression", "formula", "time_limit")
 PARAMETER_KEYS = ("start", "range", "scale")
 AXES = ("linear", "log")
 
@@ -147,6 +149,11 @@ def load_scenario(path: Path | str) -> Scenario:
         model_table, folder, source, x_names, tuple(config["parameters"]))
     table = config["parameters"]
     for name in table:
+        if name not in names and unicodedata.normalize("NFKC", name) in names:
+            # Python reads identifiers in NFKC form, so the model's argument is not spelled as written.
+            raise InputError(f"{source} [parameters] '{name}': Python reads this name as "
+                             f"'{unicodedata.normalize('NFKC', name)}' (identifiers are NFKC-normalised); "
+                             "write it that way in [parameters]")
         if name not in names:
             raise InputError(f"{source} [parameters] '{name}' is not a parameter of the model"
                              f"{nearest(name, names)}; the model takes: {', '.join(names)}")
@@ -160,13 +167,15 @@ def load_scenario(path: Path | str) -> Scenario:
     parameters = tuple(_parameter(name, table[name], guessed.get(name), source, warnings) for name in names)
 
     weights = None if measurements.sigma is None else 1.0 / measurements.sigma**2
+    _check_squares_fit(measurements, data_path, y_name, sigma_name)
     if measurements.y.size < len(names):
         raise InputError(f"{data_path}: {measurements.y.size} usable observations for {len(names)} parameters; "
                          "at least as many observations as parameters are needed")
     if measurements.y.size == len(names):
         warnings.append(f"{data_path}: as many observations as parameters: no degrees of freedom for uncertainties")
     problem = Problem(model=model, x=measurements.x, y=measurements.y, names=names, jacobian=jacobian,
-                      weights=weights, typical=np.array([p.typical for p in parameters]), formula=formula)
+                      weights=weights, typical=np.array([p.typical for p in parameters]), formula=formula,
+                      time_limit=_time_limit(model_table, source))
     _check_model_at_start(problem, np.array([p.start for p in parameters]), model_path or toml_path)
 
     sections = {name: read_section(name, config.get(name, {}), source) for name in SECTIONS}
@@ -230,6 +239,16 @@ def _model(table: dict, folder: Path, source: str, x_names: tuple[str, ...], par
             module.digest)
 
 
+def _time_limit(table: dict, source: str) -> float | None:
+    """[model] time_limit: seconds one batched model call may take (absent: no limit)."""
+    seconds = table.get("time_limit")
+    if seconds is None:
+        return None
+    if isinstance(seconds, bool) or not isinstance(seconds, (int, float)) or not 0 < seconds < math.inf:
+        raise InputError(f"{source} [model] time_limit: must be a positive number of seconds, got {seconds!r}")
+    return float(seconds)
+
+
 def _guessed_starts(guess, measurements, model_path, names, table, source) -> dict[str, float]:
     missing = [name for name in names if not _has_start(table[name])]
     if not missing:
@@ -277,6 +296,21 @@ def _parameter(name: str, entry, guessed: float | None, source: str, warnings: l
     return Parameter(name=name, start=float(start), lower=lower, upper=upper, axis=axis)
 
 
+def _check_squares_fit(measurements: Measurements, data_path: Path, y_column: str, sigma_column: str | None) -> None:
+    """Refuse observations whose sum of squares overflows double precision (about 1.8e308).
+
+    A fit near such data would have a residual sum of squares of the same size, which cannot be
+    formed; every run would end as a model error for what is only a matter of units.
+    """
+    weighted = measurements.y if measurements.sigma is None else measurements.y / measurements.sigma
+    with np.errstate(over="ignore"):
+        total = np.sum(weighted**2)
+    if not np.isfinite(total):
+        what = f"'{y_column}'" if sigma_column is None else f"'{y_column}' divided by '{sigma_column}'"
+        raise InputError(f"{data_path}: column {what} reaches {np.max(np.abs(weighted)):.3g}; its sum of squares "
+                         "overflows double precision, so no fit can be judged; rescale the column (other units)")
+
+
 def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> None:
     """Evaluate the model (and hand-derived Jacobian) once at the start and explain failures."""
     point = start[None, :]
@@ -286,12 +320,18 @@ def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> No
         if function is None:
             continue
         try:
-            with np.errstate(all="ignore"):
+            with np.errstate(all="ignore"), time_limit(problem.time_limit):
                 output = function(problem.x, *columns)
+        except ModelTimeout:
+            raise InputError(f"{path}: {function.__name__}() did not return within [model] time_limit = "
+                             f"{problem.time_limit:g} s at the starting values") from None
         except (Exception, SystemExit) as error:
             raise InputError(describe_model_error(error, path, "evaluating at the starting values")) from None
         parts = list(output.values()) if isinstance(output, dict) else (
             [output] if role == "model" else list(output) if isinstance(output, (list, tuple)) else [output])
+        if role == "jacobian" and len(parts) != problem.n_params:
+            raise InputError(f"{path}: jacobian returned {len(parts)} arrays for {problem.n_params} parameters "
+                             f"at the starting values ({function.__name__}()); expected one per parameter")
         for part in parts:
             array = np.asarray(part)
             if array.dtype.kind not in "biuf":
@@ -299,6 +339,8 @@ def _check_model_at_start(problem: Problem, start: np.ndarray, path: Path) -> No
                 raise InputError(f"{path}: {function.__name__}() returned {type(part).__name__} of dtype "
                                  f"{array.dtype} at the starting values; expected real numbers")
             try:
+                if array.ndim == 1 and array.shape[0] != problem.n_obs:
+                    raise ValueError("one value per run, not per observation")
                 np.broadcast_to(array, expected)
             except ValueError:
                 raise InputError(

@@ -6,7 +6,8 @@ folder), the sweep's settings, the format below and the source of the package's 
 modules (``code_digest``), so that a changed model or engine never reuses chunks an older one
 wrote. Each chunk is one ``.npz`` file of plain arrays (no pickles),
 written to a temporary file in the same folder and moved into place with ``os.replace``, which
-is atomic on one file system: a crash leaves either the whole chunk or none of it. Every chunk
+is atomic on one file system: a crash leaves either the whole chunk or none of it (and perhaps
+the temporary file of a writer killed outright, which the next write to the folder removes). Every chunk
 carries a SHA-256 of its arrays (names, types, shapes and bytes); a file that cannot be read back
 or whose arrays no longer match their checksum (a disk full during an earlier write, a flipped
 bit, a stray file or folder in its place) is treated as missing and recomputed, never trusted.
@@ -17,6 +18,7 @@ import functools
 import hashlib
 import json
 import os
+import re
 import shutil
 import tempfile
 from pathlib import Path
@@ -32,6 +34,9 @@ PRESENTATION = ("cli", "figures", "report")
 KEY_LENGTH = 20
 #: The array in each chunk file that holds the SHA-256 of the others.
 CHECKSUM = "checksum"
+#: Suffix of a chunk file being written, and the name pattern that holds its writer's process id.
+PARTIAL = ".partial"
+WRITER = re.compile(r"^\..+-(\d+)-[^-]*\.partial$")
 
 
 @functools.cache
@@ -72,6 +77,7 @@ class ChunkStore:
     def __init__(self, folder: Path, stage: str) -> None:
         self.folder = Path(folder)
         self.stage = stage
+        self._leftovers_removed = False
 
     def path(self, index: int) -> Path:
         return self.folder / f"{self.stage}-{index:06d}.npz"
@@ -103,7 +109,11 @@ class ChunkStore:
         if self.path(index).is_dir():
             # Something made a folder where the chunk belongs; it is ours to replace.
             shutil.rmtree(self.path(index))
-        handle, temporary = tempfile.mkstemp(dir=self.folder, prefix=f".{self.stage}-", suffix=".partial")
+        if not self._leftovers_removed:
+            remove_dead_writers_files(self.folder)
+            self._leftovers_removed = True
+        handle, temporary = tempfile.mkstemp(dir=self.folder, prefix=f".{self.stage}-{os.getpid()}-",
+                                             suffix=PARTIAL)
         try:
             with os.fdopen(handle, "wb") as stream:
                 np.savez_compressed(stream, **arrays, **{CHECKSUM: _checksum(arrays)})
@@ -114,6 +124,31 @@ class ChunkStore:
             Path(temporary).unlink(missing_ok=True)
             raise
         return self.path(index)
+
+
+def remove_dead_writers_files(folder: Path) -> None:
+    """Remove the half-written chunk files of writers that no longer run (killed with SIGKILL).
+
+    Each temporary file carries its writer's process id; a file whose writer is alive (another
+    run, this one) is left alone. Skipped where ``os.kill(pid, 0)`` does not merely ask
+    (Windows, where it would end the process).
+    """
+    if os.name != "posix":
+        return
+    for path in folder.glob(f".*{PARTIAL}"):
+        match = WRITER.match(path.name)
+        if match and not _running(int(match.group(1))):
+            path.unlink(missing_ok=True)
+
+
+def _running(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True            # another user's process
+    return True
 
 
 def _checksum(arrays: dict[str, np.ndarray]) -> np.ndarray:

@@ -104,7 +104,11 @@ class _dask_backend:
         try:
             self.client = Client(self.address, timeout="10s")
         except OSError as error:
-            raise InputError(f"cannot reach the Dask scheduler at {self.address}: {error}") from None
+            raise InputError(f"--scheduler {self.address}: cannot reach the Dask scheduler: {error}") from None
+        except (ValueError, TypeError) as error:
+            # distributed's address parser: no port, a port that is no number, an unknown scheme.
+            raise InputError(f"--scheduler {self.address}: not a scheduler address like tcp://host:8786 "
+                             f"({error})") from None
         self.config = joblib.parallel_config(backend="dask")
         self.config.__enter__()
         return self
