@@ -14,7 +14,7 @@ from ..uncertainty.replicates import FATE_MEANINGS
 from ..uncertainty.resampling import SCHEMES, WILD_MULTIPLIERS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, add_step_factors_option, number, one_step_factor, open_scenario, out,
-                     parallel_plan, print_json, progress_bar, show_audited_fit, sweep_reference, write_results)
+                     parallel_plan, print_json, progress_bar, show_audited_fit, shown, sweep_reference, write_results)
 
 DESCRIPTION = """\
 How uncertain are the fitted parameters, and can the linearised standard errors be trusted?
@@ -114,7 +114,7 @@ def show(result: BootstrapResult, files: list[Path]) -> None:
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     asymptotic = result.asymptotic
     for j, name in enumerate(result.names):
-        table.add_row(name, number(result.best[j], 8), number(asymptotic.std_errors[j], 4),
+        table.add_row(shown(name), number(result.best[j], 8), number(asymptotic.std_errors[j], 4),
                       number(result.std_error[j], 4), number(result.bias[j], 3),
                       _interval(asymptotic.lower[j], asymptotic.upper[j]),
                       _interval(result.percentile_lower[j], result.percentile_upper[j]),
@@ -137,12 +137,12 @@ def show(result: BootstrapResult, files: list[Path]) -> None:
     if result.flags:
         out.print("[bold]where bootstrap and linearisation disagree:[/]")
         for flag in result.flags:
-            out.print(f"  {flag.parameter} ({flag.kind}): {flag.reason}", soft_wrap=True)
+            out.print(f"  {shown(flag.parameter)} ({flag.kind}): {shown(flag.reason)}", soft_wrap=True)
     else:
         out.print("bootstrap and linearised intervals agree for every parameter")
     for note in result.notes:
-        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
-    out.print("wrote " + ", ".join(str(path) for path in files), soft_wrap=True)
+        out.print(f"[yellow]note:[/] {shown(note)}", soft_wrap=True)
+    out.print("wrote " + ", ".join(shown(path) for path in files), soft_wrap=True)
 
 
 def _interval(lower: float, upper: float) -> str:

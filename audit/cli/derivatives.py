@@ -12,7 +12,7 @@ from ..engine.outcomes import Outcome
 from ..errors import InputError
 from ..figures.derivatives import write_figures
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_scenario_argument,
-                     number, open_scenario, out, print_json, progress_bar, show_audited_fit, sweep_reference,
+                     number, open_scenario, out, print_json, progress_bar, show_audited_fit, shown, sweep_reference,
                      write_results)
 
 DESCRIPTION = """\
@@ -94,16 +94,16 @@ def show(result: DerivativeAudit, files: list[Path]) -> None:
         _show_columns(result, reference)
     unreliable = {point for diagnosis in result.diagnoses for point in diagnosis.unreliable_points}
     if unreliable:
-        kinks = [label for k, label in enumerate(result.labels) if not result.smooth[k].all()]
+        kinks = [shown(label) for k, label in enumerate(result.labels) if not result.smooth[k].all()]
         reason = f"; the model is not smooth at {', '.join(kinks)}" if kinks else ""
         out.print(f"numeric derivative unreliable (left out of the comparison) at {len(unreliable)} point(s){reason}",
                   soft_wrap=True)
     for note in (*result.notes, *(f"left out, model not finite: {label}" for label in result.dropped)):
-        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
+        out.print(f"[yellow]note:[/] {shown(note)}", soft_wrap=True)
     if result.consequences is not None:
         _show_consequences(result)
     for path in files:
-        out.print(f"wrote {path}")
+        out.print(f"wrote {shown(path)}", soft_wrap=True)
     _conclusion(result)
 
 
@@ -126,16 +126,16 @@ def _show_columns(result: DerivativeAudit, reference: str) -> None:
         verdict = result.verdict[j]
         colour = {"agrees": "green", "wrong": "bold red"}.get(verdict, "yellow")
         k = int(result.worst_point[j])
-        where = f"{result.labels[k]}, obs. {int(result.worst_observation[j]) + 1}" \
+        where = f"{shown(result.labels[k])}, obs. {int(result.worst_observation[j]) + 1}" \
             if k >= 0 and result.max_relative_error[j] > 0 else "—"
-        row = [name, f"[{colour}]{verdict}[/]", number(result.max_relative_error[j], 2), where]
+        row = [shown(name), f"[{colour}]{verdict}[/]", number(result.max_relative_error[j], 2), where]
         if exact:
             row.append(number(result.max_relative_error_numeric[j], 2))
-        row += [_central(result, j), result.diagnoses[j].headline]
+        row += [_central(result, j), shown(result.diagnoses[j].headline)]
         table.add_row(*row)
     out.print(table)
     for j in result.wrong_columns:
-        out.print(f"[bold]{result.names[j]}[/]: {result.diagnoses[j].summary}", soft_wrap=True)
+        out.print(f"[bold]{shown(result.names[j])}[/]: {shown(result.diagnoses[j].summary)}", soft_wrap=True)
 
 
 def _show_central(result: DerivativeAudit, reference: str) -> None:
@@ -149,7 +149,7 @@ def _show_central(result: DerivativeAudit, reference: str) -> None:
         error = result.max_central_error[j]
         digits = "—" if not error == error else "all" if error == 0 else f"{max(0.0, -math.log10(error)):.1f}"
         judged = int(result.usable[:, j].any(axis=1).sum())
-        table.add_row(name, _central(result, j), digits, f"{judged} of {len(result.labels)}")
+        table.add_row(shown(name), _central(result, j), digits, f"{judged} of {len(result.labels)}")
     out.print(table)
 
 
@@ -162,7 +162,7 @@ def _show_consequences(result: DerivativeAudit) -> None:
     found = result.consequences
     table = Table(title=f"what the wrong derivatives do to the fit from the start ({found.method}, step factor "
                         f"{found.step_factor:g})", title_justify="left")
-    for heading in ("Jacobian", "outcome", "iterations", "SSR", *(f"{name} (std. error)" for name in found.names)):
+    for heading in ("Jacobian", "outcome", "iterations", "SSR", *(f"{shown(name)} (std. error)" for name in found.names)):
         table.add_column(heading, justify="left" if heading in ("Jacobian", "outcome") else "right")
     for r, jacobian in enumerate(found.jacobians):
         outcome = Outcome(int(found.outcome[r]))
@@ -177,7 +177,7 @@ def _show_consequences(result: DerivativeAudit) -> None:
 def _conclusion(result: DerivativeAudit) -> None:
     if result.jacobian_source == "none":
         if result.has_finding:
-            poor = [name for name, bad in zip(result.names, result.central_poor) if bad]
+            poor = [name for name, bad in zip(map(shown, result.names), result.central_poor) if bad]
             out.print(f"[red]the fit's central differences lose more than 3 digits for {', '.join(poor)}[/]")
         else:
             out.print("[green]no hand-derived Jacobian to check; the fit's central differences are adequate[/]")
@@ -185,7 +185,7 @@ def _conclusion(result: DerivativeAudit) -> None:
     wrong = result.wrong_columns
     if wrong:
         out.print(f"[bold red]{len(wrong)} of {len(result.names)} partial derivative(s) wrong: "
-                  f"{', '.join(result.names[j] for j in wrong)}[/]")
+                  f"{', '.join(shown(result.names[j]) for j in wrong)}[/]")
     elif "unchecked" in result.verdict:
         out.print("[yellow]no mistake found, but some columns could not be judged[/]")
     else:

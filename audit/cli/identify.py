@@ -12,7 +12,7 @@ from ..identifiability.analysis import Identifiability, identify_scenario
 from ..identifiability.profiles import SIDE_STATUS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
-                     show_audited_fit, sweep_reference, write_results)
+                     show_audited_fit, shown, sweep_reference, write_results)
 
 DESCRIPTION = """\
 Take the best known fit, then ask whether the data can determine each parameter. The best
@@ -79,7 +79,7 @@ def run(args: argparse.Namespace) -> int:
         show_audited_fit(result.audited_fit, reference, args.out)
         show(result)
         for path in written:
-            out.print(f"wrote {path}")
+            out.print(f"wrote {shown(path)}", soft_wrap=True)
     return EXIT_FINDING if result.flagged or result.audited_fit.lower_ssr_known else EXIT_OK
 
 
@@ -97,8 +97,8 @@ def show(result: Identifiability) -> None:
               f"{number(result.condition_raw, 4)} raw")
     out.print("[bold]weakest directions[/] (parameters in units of their conditional standard errors):")
     for text in result.weak_text:
-        out.print(f"  {text}")
-    pairs = [f"{result.names[i]}–{result.names[j]} {r:+.4f}"
+        out.print(f"  {shown(text)}", soft_wrap=True)
+    pairs = [f"{shown(result.names[i])}–{shown(result.names[j])} {r:+.4f}"
              for (i, j), r in zip(result.strong_pairs, result.strong_correlation)]
     out.print(f"strongly correlated pairs (|r| ≥ {result.strong_limit:g}): {', '.join(pairs) or 'none'}")
     _show_collinearity(result)
@@ -114,7 +114,7 @@ def show(result: Identifiability) -> None:
                     "profile upper"):
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     for j, name in enumerate(result.names):
-        table.add_row(name, number(result.params[j], 8), number(estimates.lower[j], 6),
+        table.add_row(shown(name), number(result.params[j], 8), number(estimates.lower[j], 6),
                       number(estimates.upper[j], 6), _end(profiles.lower[j], profiles.lower_status[j]),
                       _end(profiles.upper[j], profiles.upper_status[j]))
     out.print(table)
@@ -122,7 +122,7 @@ def show(result: Identifiability) -> None:
         out.print(f"  {OPEN_SIDE[status]}: {SIDE_STATUS[status]}")
     for finding in result.findings:
         colour = "red" if finding["level"] == "flag" else "yellow"
-        out.print(f"[{colour}]{finding['level']}[/]: {finding['text']}", soft_wrap=True)
+        out.print(f"[{colour}]{finding['level']}[/]: {shown(finding['text'])}", soft_wrap=True)
     if not result.flagged:
         out.print("[green]ok[/]: every parameter is bounded by its profile; no structural non-identifiability")
 
@@ -133,12 +133,12 @@ def _show_collinearity(result: Identifiability) -> None:
         return
     above = int(np.sum(collinearity.index >= collinearity.limit))
     worst = int(np.argmax(np.nan_to_num(collinearity.index, posinf=np.finfo(float).max)))
-    subsets = ", ".join("{" + ", ".join(result.names[j] for j in subset) + "}"
+    subsets = ", ".join("{" + ", ".join(shown(result.names[j]) for j in subset) + "}"
                         for subset in collinearity.largest_identifiable[:5]) or "none"
     sizes = "2" if collinearity.max_size == 2 else f"2 to {collinearity.max_size}"
     out.print(f"collinearity indices (subsets of size {sizes}, limit {collinearity.limit:g}): "
               f"{above} of {len(collinearity.index)} at or above the limit; largest "
-              f"{{{', '.join(collinearity.subset_names(worst))}}} {number(collinearity.index[worst], 4)}")
+              f"{{{', '.join(map(shown, collinearity.subset_names(worst)))}}} {number(collinearity.index[worst], 4)}")
     out.print(f"largest identifiable subsets: {subsets}")
 
 

@@ -14,7 +14,7 @@ from ..sweep.run import SweepRequest, run_sweep
 from ..sweep.starts import DESIGNS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, add_solver_option, add_step_factors_option, err, number, open_scenario, out,
-                     parallel_plan, print_json, progress_bar, write_results)
+                     parallel_plan, print_json, progress_bar, shown, write_results)
 
 DESCRIPTION = """\
 Does the fit depend on where it starts, or on the step factor? This command fits the model from
@@ -132,8 +132,8 @@ def show(result: SweepResult, files: list[Path]) -> None:
     _show_solutions(result)
     _show_recommendation(result)
     for note in result.warnings:
-        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
-    out.print("wrote " + ", ".join(str(path) for path in files), soft_wrap=True)
+        out.print(f"[yellow]note:[/] {shown(note)}", soft_wrap=True)
+    out.print("wrote " + ", ".join(shown(path) for path in files), soft_wrap=True)
 
 
 def _share(value: float) -> str:
@@ -145,19 +145,19 @@ def _show_solutions(result: SweepResult) -> None:
         out.print("[red]no run converged[/]")
         return
     table = Table(title=f"distinct solutions ({len(result.solution_ssr)})", title_justify="left")
-    shown = min(len(result.solution_ssr), 8)
-    relations = [_solution_kind(result, s) for s in range(shown)]
-    for heading in ("#", "SSR", *result.names, "largest share", *(("relation to the best",) if any(relations) else ())):
+    listed = min(len(result.solution_ssr), 8)
+    relations = [_solution_kind(result, s) for s in range(listed)]
+    for heading in ("#", "SSR", *map(shown, result.names), "largest share", *(("relation to the best",) if any(relations) else ())):
         table.add_column(heading, justify="left" if heading == "relation to the best" else "right")
-    for s in range(shown):
+    for s in range(listed):
         table.add_row("best" if s == 0 else str(s + 1), number(result.solution_ssr[s], 8),
                       *(number(v, 8) for v in result.solution_params[s]),
-                      f"{np.max(result.solution_shares[..., s]):.1%}", *((relations[s],) if any(relations) else ()))
+                      f"{np.max(result.solution_shares[..., s]):.1%}", *((shown(relations[s]),) if any(relations) else ()))
     out.print(table)
-    if shown < len(result.solution_ssr):
-        outside = int(np.count_nonzero(~result.solution_inside[shown:]))
+    if listed < len(result.solution_ssr):
+        outside = int(np.count_nonzero(~result.solution_inside[listed:]))
         where = f" ({outside} of them outside the searched ranges)" if outside else ""
-        out.print(f"… and {len(result.solution_ssr) - shown} more in sweep.json{where}")
+        out.print(f"… and {len(result.solution_ssr) - listed} more in sweep.json{where}")
 
 
 def _solution_kind(result: SweepResult, s: int) -> str:
@@ -174,14 +174,14 @@ def _solution_kind(result: SweepResult, s: int) -> str:
 
 def _show_recommendation(result: SweepResult) -> None:
     if result.recommended is None:
-        out.print(f"[red]no recommendation:[/] {result.recommendation_reason}", soft_wrap=True)
+        out.print(f"[red]no recommendation:[/] {shown(result.recommendation_reason)}", soft_wrap=True)
         if result.next_step:
-            out.print(f"[bold]next step:[/] {result.next_step}", soft_wrap=True)
+            out.print(f"[bold]next step:[/] {shown(result.next_step)}", soft_wrap=True)
         return
     m, f = result.recommended
     out.print(f"[bold]recommended:[/] {result.methods[m]} with step factor {result.step_factors[f]:g}: "
               f"{result.shares[m, f, BEST]:.1%} of starts reach the best solution in "
-              f"{number(result.iterations_median[m, f, BEST])} iterations (median); {result.recommendation_reason}",
+              f"{number(result.iterations_median[m, f, BEST])} iterations (median); {shown(result.recommendation_reason)}",
               soft_wrap=True)
     if not np.isfinite(result.region_radius[m, f]):
         err.print(f"[yellow]no safe region:[/] no box around the best fit holding at least "
@@ -192,7 +192,7 @@ def _show_recommendation(result: SweepResult) -> None:
     for heading in ("parameter", "best fit", "safe from", "safe to", "scenario start", "inside"):
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     for j, name in enumerate(result.names):
-        table.add_row(name, number(result.best_params[j], 8), number(result.region_lower[m, f, j], 6),
+        table.add_row(shown(name), number(result.best_params[j], 8), number(result.region_lower[m, f, j], 6),
                       number(result.region_upper[m, f, j], 6), number(result.start[j], 6),
                       "yes" if result.start_inside_parameter[m, f, j] else "[red]no[/]")
     out.print(table)
