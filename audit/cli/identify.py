@@ -11,7 +11,7 @@ from ..figures.identifiability import write_figures
 from ..identifiability.analysis import Identifiability, identify_scenario
 from ..identifiability.profiles import SIDE_STATUS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
-                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
+                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, print_table, progress_bar,
                      show_audited_fit, shown, sweep_reference, write_results)
 
 DESCRIPTION = """\
@@ -92,7 +92,7 @@ def show(result: Identifiability) -> None:
     for k, (raw, scaled, index) in enumerate(zip(result.singular_raw, result.singular_scaled,
                                                  result.condition_index), start=1):
         spectrum.add_row(str(k), number(raw, 4), number(scaled, 4), number(index, 4))
-    out.print(spectrum)
+    print_table(spectrum)
     out.print(f"condition number: {number(result.condition_scaled, 4)} with unit-length columns, "
               f"{number(result.condition_raw, 4)} raw")
     out.print("[bold]weakest directions[/] (parameters in units of their conditional standard errors):")
@@ -117,7 +117,7 @@ def show(result: Identifiability) -> None:
         table.add_row(shown(name), number(result.params[j], 8), number(estimates.lower[j], 6),
                       number(estimates.upper[j], 6), _end(profiles.lower[j], profiles.lower_status[j]),
                       _end(profiles.upper[j], profiles.upper_status[j]))
-    out.print(table)
+    print_table(table)
     for status in sorted({*profiles.lower_status, *profiles.upper_status} - {"closed"}):
         out.print(f"  {OPEN_SIDE[status]}: {SIDE_STATUS[status]}")
     for finding in result.findings:
