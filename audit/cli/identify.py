@@ -8,7 +8,7 @@ import numpy as np
 from rich.table import Table
 
 from ..figures.identifiability import write_figures
-from ..identifiability.analysis import Identifiability, identify_scenario
+from ..identifiability.analysis import PRACTICAL_CORRELATION, Identifiability, identify_scenario
 from ..identifiability.profiles import SIDE_STATUS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, print_table, progress_bar,
@@ -98,9 +98,14 @@ def show(result: Identifiability) -> None:
     out.print("[bold]weakest directions[/] (parameters in units of their conditional standard errors):")
     for text in result.weak_text:
         out.print(f"  {shown(text)}", soft_wrap=True)
-    pairs = [f"{shown(result.names[i])}–{shown(result.names[j])} {r:+.4f}"
+    # Six decimals: at four, a correlation of 0.99995 would print as a perfect +1.0000.
+    pairs = [f"{shown(result.names[i])}–{shown(result.names[j])} {r:+.6f}"
              for (i, j), r in zip(result.strong_pairs, result.strong_correlation)]
-    out.print(f"strongly correlated pairs (|r| ≥ {result.strong_limit:g}): {', '.join(pairs) or 'none'}")
+    off_diagonal = estimates.correlation[~np.eye(len(result.names), dtype=bool)]
+    # A singular covariance has no correlations: "none" would read as "no parameter trades off".
+    listed = "undefined (the covariance is singular; see the weakest directions)" \
+        if not np.all(np.isfinite(off_diagonal)) else ", ".join(pairs) or "none"
+    out.print(f"strongly correlated pairs (|r| ≥ {result.strong_limit:g}): {listed}", soft_wrap=True)
     _show_collinearity(result)
     rank = result.rank
     usable = np.isfinite(rank.ratio)
@@ -123,7 +128,12 @@ def show(result: Identifiability) -> None:
     for finding in result.findings:
         colour = "red" if finding["level"] == "flag" else "yellow"
         out.print(f"[{colour}]{finding['level']}[/]: {shown(finding['text'])}", soft_wrap=True)
-    if not result.flagged:
+    tied = any(abs(r) >= PRACTICAL_CORRELATION for r in result.strong_correlation)
+    if not result.flagged and tied:
+        out.print("[yellow]bounded, but not separately determined[/]: every profile interval closes, yet a pair "
+                  f"correlated beyond |r| = {PRACTICAL_CORRELATION:g} is practically non-identifiable (above)",
+                  soft_wrap=True)
+    elif not result.flagged:
         out.print("[green]ok[/]: every parameter is bounded by its profile; no structural non-identifiability")
 
 
