@@ -49,13 +49,18 @@ def test_the_table_prints_the_json_numbers(capsys, tmp_path):
     assert main(["bootstrap", BUNDLED, "--samples", SAMPLES, "--jobs", "1", "-o", str(tmp_path)]) == 0
     text = capsys.readouterr().out
     assert "residual bootstrap: 300 of 300 refits used" in text
+    lines = text.splitlines()
     for row in report["parameters"]:
-        line = next(line for line in text.splitlines() if re.match(rf"\W*{row['name']}\s+│", line))
-        cells = [float(cell) for cell in re.findall(r"-?\d+(?:\.\d+)?(?:e[+-]?\d+)?", line)]
+        # The first table: estimate, standard errors, bias; the intervals table: a row per
+        # interval (t, percentile, BCa), the width ratio on the row of the interval compared.
+        spread, interval = [k for k, line in enumerate(lines) if re.match(rf"\W*{row['name']}\s+│", line)][:2]
+        numbers = [[float(cell) for cell in re.findall(r"-?\d+(?:\.\d+)?(?:e[+-]?\d+)?", line.split("│", 2)[-1])]
+                   for line in lines[interval:interval + 3]]
+        cells = [float(cell) for cell in re.findall(r"-?\d+(?:\.\d+)?(?:e[+-]?\d+)?", lines[spread])]
         boot = row["bootstrap"]
         printed = {"estimate": cells[0], "t error": cells[1], "boot error": cells[2], "bias": cells[3],
-                   "percentile": cells[6:8], "width ratio": cells[-1]}
-        # Printed to 8, 4, 4 and 3 significant digits; the percentile ends to 6.
+                   "percentile": numbers[1][:2], "width ratio": next(n[2] for n in numbers if len(n) == 3)}
+        # Printed to 8, 4, 4 and 3 significant digits; the percentile ends to 8.
         assert printed["estimate"] == pytest.approx(row["estimate"], rel=1e-7)
         assert printed["t error"] == pytest.approx(row["asymptotic"]["std_error"], rel=1e-3)
         assert printed["boot error"] == pytest.approx(boot["std_error"], rel=1e-3)

@@ -14,7 +14,8 @@ from ..uncertainty.replicates import FATE_MEANINGS
 from ..uncertainty.resampling import SCHEMES, WILD_MULTIPLIERS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, add_step_factors_option, number, one_step_factor, open_scenario, out,
-                     parallel_plan, print_json, progress_bar, show_audited_fit, sweep_reference, write_results)
+                     parallel_plan, print_json, print_table, progress_bar, show_audited_fit, shown, sweep_reference,
+                     write_results)
 
 DESCRIPTION = """\
 How uncertain are the fitted parameters, and can the linearised standard errors be trusted?
@@ -108,21 +109,18 @@ def show(result: BootstrapResult, files: list[Path]) -> None:
     weights = f", {result.wild_multipliers} multipliers" if result.wild_multipliers else ""
     adjusted = ", leverage-adjusted" if result.leverage_adjusted else ""
     table = Table(title=f"{result.method} bootstrap{weights}{adjusted}: {result.used} of {result.samples} refits "
-                        f"used, step factor {result.refit.step_factor:g}, {level} intervals", title_justify="left")
-    for heading in ("parameter", "estimate", "std. error (t)", "std. error (boot)", "bias",
-                    "t interval", "percentile", "BCa", "width ratio"):
+                        f"used, step factor {result.refit.step_factor:g}", title_justify="left")
+    for heading in ("parameter", "estimate", "std. error (t)", "std. error (bootstrap)",
+                    "bias (bootstrap mean − estimate)"):
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     asymptotic = result.asymptotic
     for j, name in enumerate(result.names):
-        table.add_row(name, number(result.best[j], 8), number(asymptotic.std_errors[j], 4),
-                      number(result.std_error[j], 4), number(result.bias[j], 3),
-                      _interval(asymptotic.lower[j], asymptotic.upper[j]),
-                      _interval(result.percentile_lower[j], result.percentile_upper[j]),
-                      _interval(result.bca.lower[j], result.bca.upper[j]),
-                      number(result.comparison.width_ratio[j], 3))
-    out.print(table)
+        table.add_row(shown(name), number(result.best[j], 8), number(asymptotic.std_errors[j], 4),
+                      number(result.std_error[j], 4), number(result.bias[j], 3))
+    print_table(table)
+    print_table(_intervals_table(result, level))
     fates = Table(title="how the refits ended", title_justify="left")
-    for heading in ("kind", "bootstrap", "share", "leave-one-out", "meaning"):
+    for heading in ("kind", "bootstrap refits", "share of them", "leave-one-out refits (for BCa)", "meaning"):
         fates.add_column(heading, justify="left" if heading in ("kind", "meaning") else "right")
     shares, jackknife = result.replicates.shares(), result.jackknife.counts()
     reasons = result.replicates.other_reasons()
@@ -133,17 +131,30 @@ def show(result: BootstrapResult, files: list[Path]) -> None:
                 meaning += (f" ({reasons['another_solution']} another solution, "
                             f"{reasons['descent_failed']} descent did not converge)")
             fates.add_row(label.replace("_", " "), str(count), f"{shares[label]:.1%}", str(jackknife[label]), meaning)
-    out.print(fates)
+    print_table(fates)
     if result.flags:
         out.print("[bold]where bootstrap and linearisation disagree:[/]")
         for flag in result.flags:
-            out.print(f"  {flag.parameter} ({flag.kind}): {flag.reason}", soft_wrap=True)
+            out.print(f"  {shown(flag.parameter)} ({flag.kind}): {shown(flag.reason)}", soft_wrap=True)
     else:
         out.print("bootstrap and linearised intervals agree for every parameter")
     for note in result.notes:
-        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
-    out.print("wrote " + ", ".join(str(path) for path in files), soft_wrap=True)
+        out.print(f"[yellow]note:[/] {shown(note)}", soft_wrap=True)
+    out.print("wrote " + ", ".join(shown(path) for path in files), soft_wrap=True)
 
 
-def _interval(lower: float, upper: float) -> str:
-    return f"[{number(lower, 6)}, {number(upper, 6)}]"
+def _intervals_table(result: BootstrapResult, level: str) -> Table:
+    """One row per parameter and interval, so that the ends stay whole at 80 columns; the width
+    ratio sits on the row of the bootstrap interval it was computed from."""
+    table = Table(title=f"{level} intervals: t (linearised), bootstrap percentile and BCa", title_justify="left")
+    for heading in ("parameter", "interval", "lower", "upper", "width ÷ t interval's width"):
+        table.add_column(heading, justify="left" if heading in ("parameter", "interval") else "right")
+    asymptotic, comparison = result.asymptotic, result.comparison
+    for j, name in enumerate(result.names):
+        ends = {"t": (asymptotic.lower[j], asymptotic.upper[j]),
+                "percentile": (result.percentile_lower[j], result.percentile_upper[j]),
+                "BCa": (result.bca.lower[j], result.bca.upper[j])}
+        for kind, (lower, upper) in ends.items():
+            ratio = number(comparison.width_ratio[j], 3) if kind.lower() == comparison.compared[j] else ""
+            table.add_row(shown(name) if kind == "t" else "", kind, number(lower, 8), number(upper, 8), ratio)
+    return table

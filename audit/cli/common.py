@@ -14,6 +14,7 @@ from pathlib import Path
 from rich.console import Console
 from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+from rich.table import Table
 
 from ..engine.batch import METHODS
 from ..engine.best_fit import FROM_START, KnownFit, SweepReference
@@ -46,6 +47,14 @@ def shown(text: object) -> str:
     """A user's string (title, column name, path) ready for a rich console: control characters
     (ESC sequences) removed, markup brackets escaped."""
     return escape(CONTROL_CHARACTERS.sub("", str(text)))
+
+
+def print_table(table: Table) -> None:
+    """Print ``table`` so that a narrow terminal wraps its cells onto more lines instead of cutting
+    them with '…': a number cut short would be read as a different number."""
+    for column in table.columns:
+        column.overflow = "fold"
+    out.print(table)
 
 
 def add_command(subparsers, name: str, summary: str, description: str, examples: str,

@@ -8,12 +8,13 @@ from pathlib import Path
 from rich.table import Table
 
 from ..derivatives.check import SOURCES, DerivativeAudit, audit_derivatives
+from ..derivatives.points import SAMPLE
 from ..engine.outcomes import Outcome
 from ..errors import InputError
 from ..figures.derivatives import write_figures
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_scenario_argument,
-                     number, open_scenario, out, print_json, progress_bar, show_audited_fit, sweep_reference,
-                     write_results)
+                     number, open_scenario, out, print_json, print_table, progress_bar, show_audited_fit, shown,
+                     sweep_reference, write_results)
 
 DESCRIPTION = """\
 Are the hand-derived partial derivatives (the model file's jacobian function) right?
@@ -94,16 +95,16 @@ def show(result: DerivativeAudit, files: list[Path]) -> None:
         _show_columns(result, reference)
     unreliable = {point for diagnosis in result.diagnoses for point in diagnosis.unreliable_points}
     if unreliable:
-        kinks = [label for k, label in enumerate(result.labels) if not result.smooth[k].all()]
+        kinks = [shown(label) for k, label in enumerate(result.labels) if not result.smooth[k].all()]
         reason = f"; the model is not smooth at {', '.join(kinks)}" if kinks else ""
         out.print(f"numeric derivative unreliable (left out of the comparison) at {len(unreliable)} point(s){reason}",
                   soft_wrap=True)
     for note in (*result.notes, *(f"left out, model not finite: {label}" for label in result.dropped)):
-        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
+        out.print(f"[yellow]note:[/] {shown(note)}", soft_wrap=True)
     if result.consequences is not None:
         _show_consequences(result)
     for path in files:
-        out.print(f"wrote {path}")
+        out.print(f"wrote {shown(path)}", soft_wrap=True)
     _conclusion(result)
 
 
@@ -117,25 +118,42 @@ def _show_columns(result: DerivativeAudit, reference: str) -> None:
         whose = "the formula's"
     table = Table(title=f"{whose} partial derivatives at {len(result.labels)} points, judged against {reference}",
                   title_justify="left")
-    headings = ["parameter", "verdict", "max rel. error", "where", *(["vs numdifftools"] if exact else []),
-                "central diff. error", "diagnosis"]
-    for heading in headings:
-        table.add_column(heading, justify="left" if heading in ("parameter", "verdict", "where", "diagnosis")
-                         else "right")
+    for heading in ("parameter", "verdict", "largest rel. error", "where (point, obs.)", "diagnosis"):
+        table.add_column(heading, justify="right" if heading == "largest rel. error" else "left")
     for j, name in enumerate(result.names):
         verdict = result.verdict[j]
         colour = {"agrees": "green", "wrong": "bold red"}.get(verdict, "yellow")
         k = int(result.worst_point[j])
-        where = f"{result.labels[k]}, obs. {int(result.worst_observation[j]) + 1}" \
+        where = f"{shown(result.labels[k])}, obs. {int(result.worst_observation[j]) + 1}" \
             if k >= 0 and result.max_relative_error[j] > 0 else "—"
-        row = [name, f"[{colour}]{verdict}[/]", number(result.max_relative_error[j], 2), where]
-        if exact:
-            row.append(number(result.max_relative_error_numeric[j], 2))
-        row += [_central(result, j), result.diagnoses[j].headline]
-        table.add_row(*row)
-    out.print(table)
+        table.add_row(shown(name), f"[{colour}]{verdict}[/]", number(result.max_relative_error[j], 2), where,
+                      shown(result.diagnoses[j].headline))
+    print_table(table)
+    # The other derivatives against the same reference, apart: at 80 columns one table of all
+    # of them left the diagnosis a word per line.
+    others = Table(title=f"largest rel. error of the other derivatives against {reference}", title_justify="left")
+    others.add_column("parameter")
+    if exact:
+        others.add_column("numdifftools", justify="right")
+    others.add_column("the fit's central differences", justify="right")
+    for j, name in enumerate(result.names):
+        numeric = (number(result.max_relative_error_numeric[j], 2),) if exact else ()
+        others.add_row(shown(name), *numeric, _central(result, j))
+    print_table(others)
+    out.print("rel. error: the largest |difference| over the column's largest |derivative| at that point",
+              soft_wrap=True)
+    _show_named_points(result)
     for j in result.wrong_columns:
-        out.print(f"[bold]{result.names[j]}[/]: {result.diagnoses[j].summary}", soft_wrap=True)
+        out.print(f"[bold]{shown(result.names[j])}[/]: {shown(result.diagnoses[j].summary)}", soft_wrap=True)
+
+
+def _show_named_points(result: DerivativeAudit) -> None:
+    """The parameters of every sampled check point the table names, which otherwise only the JSON holds."""
+    named = sorted({int(k) for j, k in enumerate(result.worst_point)
+                    if k >= 0 and result.max_relative_error[j] > 0 and result.labels[int(k)].startswith(SAMPLE)})
+    for k in named:
+        values = ", ".join(f"{shown(name)} = {number(value, 6)}" for name, value in zip(result.names, result.points[k]))
+        out.print(f"  {shown(result.labels[k])}: {values}", soft_wrap=True)
 
 
 def _show_central(result: DerivativeAudit, reference: str) -> None:
@@ -143,14 +161,14 @@ def _show_central(result: DerivativeAudit, reference: str) -> None:
               "the model by central differences; here is how many digits they carry.", soft_wrap=True)
     table = Table(title=f"the fit's central differences at {len(result.labels)} points, against {reference}",
                   title_justify="left")
-    for heading in ("parameter", "max rel. error", "digits", "points judged"):
+    for heading in ("parameter", "largest rel. error", "digits", "points judged"):
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     for j, name in enumerate(result.names):
         error = result.max_central_error[j]
         digits = "—" if not error == error else "all" if error == 0 else f"{max(0.0, -math.log10(error)):.1f}"
         judged = int(result.usable[:, j].any(axis=1).sum())
-        table.add_row(name, _central(result, j), digits, f"{judged} of {len(result.labels)}")
-    out.print(table)
+        table.add_row(shown(name), _central(result, j), digits, f"{judged} of {len(result.labels)}")
+    print_table(table)
 
 
 def _central(result: DerivativeAudit, j: int) -> str:
@@ -162,22 +180,26 @@ def _show_consequences(result: DerivativeAudit) -> None:
     found = result.consequences
     table = Table(title=f"what the wrong derivatives do to the fit from the start ({found.method}, step factor "
                         f"{found.step_factor:g})", title_justify="left")
-    for heading in ("Jacobian", "outcome", "iterations", "SSR", *(f"{name} (std. error)" for name in found.names)):
-        table.add_column(heading, justify="left" if heading in ("Jacobian", "outcome") else "right")
-    for r, jacobian in enumerate(found.jacobians):
-        outcome = Outcome(int(found.outcome[r]))
-        colour = "green" if outcome == Outcome.CONVERGED else "red"
-        cells = [f"{number(found.params[r, j], 7)} ({number(found.std_errors[r, j], 3)})"
-                 for j in range(len(found.names))]
-        table.add_row(jacobian, f"[{colour}]{outcome.label}[/]", str(int(found.iterations[r])),
-                      number(found.ssr[r], 7), *cells)
-    out.print(table)
+    # One column per Jacobian, one row per quantity: as wide for eight parameters as for two.
+    table.add_column("Jacobian:")
+    for jacobian in found.jacobians:
+        table.add_column(jacobian, justify="right")
+    outcomes = [Outcome(int(code)) for code in found.outcome]
+    table.add_row("outcome", *(f"[{'green' if outcome == Outcome.CONVERGED else 'red'}]{outcome.label}[/]"
+                               for outcome in outcomes))
+    table.add_row("iterations", *(str(int(count)) for count in found.iterations))
+    table.add_row("SSR", *(number(ssr, 7) for ssr in found.ssr))
+    for j, name in enumerate(found.names):
+        estimates = (f"{number(found.params[r, j], 7)} ({number(found.std_errors[r, j], 3)})"
+                     for r in range(len(found.jacobians)))
+        table.add_row(f"{shown(name)} (std. error)", *estimates)
+    print_table(table)
 
 
 def _conclusion(result: DerivativeAudit) -> None:
     if result.jacobian_source == "none":
         if result.has_finding:
-            poor = [name for name, bad in zip(result.names, result.central_poor) if bad]
+            poor = [name for name, bad in zip(map(shown, result.names), result.central_poor) if bad]
             out.print(f"[red]the fit's central differences lose more than 3 digits for {', '.join(poor)}[/]")
         else:
             out.print("[green]no hand-derived Jacobian to check; the fit's central differences are adequate[/]")
@@ -185,7 +207,7 @@ def _conclusion(result: DerivativeAudit) -> None:
     wrong = result.wrong_columns
     if wrong:
         out.print(f"[bold red]{len(wrong)} of {len(result.names)} partial derivative(s) wrong: "
-                  f"{', '.join(result.names[j] for j in wrong)}[/]")
+                  f"{', '.join(shown(result.names[j]) for j in wrong)}[/]")
     elif "unchecked" in result.verdict:
         out.print("[yellow]no mistake found, but some columns could not be judged[/]")
     else:

@@ -10,7 +10,7 @@ from ..engine.single_fit import SingleFit, fit_once
 from ..errors import InputError
 from ..inputs.settings import nearest
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, add_solver_option,
-                     add_step_factors_option, number, one_step_factor, open_scenario, out, print_json)
+                     add_step_factors_option, number, one_step_factor, open_scenario, out, print_json, print_table, shown)
 
 DESCRIPTION = """\
 Fit the scenario's model once, from its starting values, by iterated linearisation, and show
@@ -76,7 +76,7 @@ def run(args: argparse.Namespace) -> int:
     else:
         show(fit)
         if not fit.converged:
-            out.print(f"[dim]next: a smaller --step-factors, --solver lm, or 'fitaudit sweep {args.scenario}' to see "
+            out.print(f"[dim]next: a smaller --step-factors, --solver lm, or 'fitaudit sweep {shown(args.scenario)}' to see "
                       "which starts and step factors reach the best fit[/]", soft_wrap=True)
     return EXIT_OK if fit.converged else EXIT_FINDING
 
@@ -88,10 +88,10 @@ def show(fit: SingleFit) -> None:
     trace.add_column("SSR", justify="right")
     trace.add_column("largest rel. change", justify="right")
     for name in fit.names:
-        trace.add_column(name, justify="right")
+        trace.add_column(shown(name), justify="right")
     for k, (point, ssr, change) in enumerate(zip(fit.iterates, fit.ssr, fit.max_rel_change)):
         trace.add_row(str(k), number(ssr, 8), number(change, 3), *(number(v, 8) for v in point))
-    out.print(trace)
+    print_table(trace)
     colour = "green" if fit.converged else "red"
     out.print(f"outcome: [{colour}]{fit.outcome.label}[/]: {fit.outcome.meaning}")
     if fit.estimates is None:
@@ -100,18 +100,18 @@ def show(fit: SingleFit) -> None:
     level = f"{estimates.confidence:.0%}"
     table = Table(title=f"estimates (s = {number(estimates.residual_sd)}, {estimates.dof} degrees of freedom)",
                   title_justify="left")
-    for heading in ("parameter", "estimate", "std. error", "rel. error", f"{level} lower", f"{level} upper"):
+    for heading in ("parameter", "estimate", "std. error", "std. error / |estimate|", f"{level} lower", f"{level} upper"):
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     for name, value, error, lower, upper in zip(estimates.names, estimates.params, estimates.std_errors,
                                                 estimates.lower, estimates.upper):
         relative = abs(error / value) if value else float("nan")
-        table.add_row(name, number(value, 8), number(error, 4), f"{relative:.2%}" if relative == relative else "—",
+        table.add_row(shown(name), number(value, 8), number(error, 4), f"{relative:.2%}" if relative == relative else "—",
                       number(lower, 8), number(upper, 8))
-    out.print(table)
+    print_table(table)
     correlation = Table(title="correlation", title_justify="left")
     correlation.add_column("")
     for name in estimates.names:
-        correlation.add_column(name, justify="right")
+        correlation.add_column(shown(name), justify="right")
     for name, row in zip(estimates.names, estimates.correlation):
-        correlation.add_row(name, *(f"{value:+.3f}" if value == value else "—" for value in row))
-    out.print(correlation)
+        correlation.add_row(shown(name), *(f"{value:+.3f}" if value == value else "—" for value in row))
+    print_table(correlation)

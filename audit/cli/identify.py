@@ -8,11 +8,11 @@ import numpy as np
 from rich.table import Table
 
 from ..figures.identifiability import write_figures
-from ..identifiability.analysis import Identifiability, identify_scenario
+from ..identifiability.analysis import PRACTICAL_CORRELATION, Identifiability, identify_scenario
 from ..identifiability.profiles import SIDE_STATUS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
-                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, progress_bar,
-                     show_audited_fit, sweep_reference, write_results)
+                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, print_table, progress_bar,
+                     show_audited_fit, shown, sweep_reference, write_results)
 
 DESCRIPTION = """\
 Take the best known fit, then ask whether the data can determine each parameter. The best
@@ -79,7 +79,7 @@ def run(args: argparse.Namespace) -> int:
         show_audited_fit(result.audited_fit, reference, args.out)
         show(result)
         for path in written:
-            out.print(f"wrote {path}")
+            out.print(f"wrote {shown(path)}", soft_wrap=True)
     return EXIT_FINDING if result.flagged or result.audited_fit.lower_ssr_known else EXIT_OK
 
 
@@ -92,15 +92,20 @@ def show(result: Identifiability) -> None:
     for k, (raw, scaled, index) in enumerate(zip(result.singular_raw, result.singular_scaled,
                                                  result.condition_index), start=1):
         spectrum.add_row(str(k), number(raw, 4), number(scaled, 4), number(index, 4))
-    out.print(spectrum)
+    print_table(spectrum)
     out.print(f"condition number: {number(result.condition_scaled, 4)} with unit-length columns, "
               f"{number(result.condition_raw, 4)} raw")
     out.print("[bold]weakest directions[/] (parameters in units of their conditional standard errors):")
     for text in result.weak_text:
-        out.print(f"  {text}")
-    pairs = [f"{result.names[i]}–{result.names[j]} {r:+.4f}"
+        out.print(f"  {shown(text)}", soft_wrap=True)
+    # Six decimals: at four, a correlation of 0.99995 would print as a perfect +1.0000.
+    pairs = [f"{shown(result.names[i])}–{shown(result.names[j])} {r:+.6f}"
              for (i, j), r in zip(result.strong_pairs, result.strong_correlation)]
-    out.print(f"strongly correlated pairs (|r| ≥ {result.strong_limit:g}): {', '.join(pairs) or 'none'}")
+    off_diagonal = estimates.correlation[~np.eye(len(result.names), dtype=bool)]
+    # A singular covariance has no correlations: "none" would read as "no parameter trades off".
+    listed = "undefined (the covariance is singular; see the weakest directions)" \
+        if not np.all(np.isfinite(off_diagonal)) else ", ".join(pairs) or "none"
+    out.print(f"strongly correlated pairs (|r| ≥ {result.strong_limit:g}): {listed}", soft_wrap=True)
     _show_collinearity(result)
     rank = result.rank
     usable = np.isfinite(rank.ratio)
@@ -114,16 +119,21 @@ def show(result: Identifiability) -> None:
                     "profile upper"):
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     for j, name in enumerate(result.names):
-        table.add_row(name, number(result.params[j], 8), number(estimates.lower[j], 6),
+        table.add_row(shown(name), number(result.params[j], 8), number(estimates.lower[j], 6),
                       number(estimates.upper[j], 6), _end(profiles.lower[j], profiles.lower_status[j]),
                       _end(profiles.upper[j], profiles.upper_status[j]))
-    out.print(table)
+    print_table(table)
     for status in sorted({*profiles.lower_status, *profiles.upper_status} - {"closed"}):
         out.print(f"  {OPEN_SIDE[status]}: {SIDE_STATUS[status]}")
     for finding in result.findings:
         colour = "red" if finding["level"] == "flag" else "yellow"
-        out.print(f"[{colour}]{finding['level']}[/]: {finding['text']}", soft_wrap=True)
-    if not result.flagged:
+        out.print(f"[{colour}]{finding['level']}[/]: {shown(finding['text'])}", soft_wrap=True)
+    tied = any(abs(r) >= PRACTICAL_CORRELATION for r in result.strong_correlation)
+    if not result.flagged and tied:
+        out.print("[yellow]bounded, but not separately determined[/]: every profile interval closes, yet a pair "
+                  f"correlated beyond |r| = {PRACTICAL_CORRELATION:g} is practically non-identifiable (above)",
+                  soft_wrap=True)
+    elif not result.flagged:
         out.print("[green]ok[/]: every parameter is bounded by its profile; no structural non-identifiability")
 
 
@@ -133,12 +143,12 @@ def _show_collinearity(result: Identifiability) -> None:
         return
     above = int(np.sum(collinearity.index >= collinearity.limit))
     worst = int(np.argmax(np.nan_to_num(collinearity.index, posinf=np.finfo(float).max)))
-    subsets = ", ".join("{" + ", ".join(result.names[j] for j in subset) + "}"
+    subsets = ", ".join("{" + ", ".join(shown(result.names[j]) for j in subset) + "}"
                         for subset in collinearity.largest_identifiable[:5]) or "none"
     sizes = "2" if collinearity.max_size == 2 else f"2 to {collinearity.max_size}"
     out.print(f"collinearity indices (subsets of size {sizes}, limit {collinearity.limit:g}): "
               f"{above} of {len(collinearity.index)} at or above the limit; largest "
-              f"{{{', '.join(collinearity.subset_names(worst))}}} {number(collinearity.index[worst], 4)}")
+              f"{{{', '.join(map(shown, collinearity.subset_names(worst)))}}} {number(collinearity.index[worst], 4)}")
     out.print(f"largest identifiable subsets: {subsets}")
 
 

@@ -4,7 +4,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from rich.markup import escape
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
@@ -12,7 +11,7 @@ from ..report.result import AUDIT_FILE, FIGURES, AuditResult
 from ..report.run import QUICK_POINTS, QUICK_RESOLUTION, QUICK_SAMPLES, STAGES, run_audit
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_step_factors_option,
-                     add_scenario_argument, err, number, open_scenario, out, parallel_plan, print_json)
+                     add_scenario_argument, err, number, open_scenario, out, parallel_plan, print_json, shown)
 
 DESCRIPTION = f"""\
 Can I publish this fit? This command runs every check fitaudit has, in order, and ends with a
@@ -87,19 +86,19 @@ def show(result: AuditResult, folder: Path) -> None:
     """The verdict table, the uncertainty statement and where the files are."""
     colours = {"pass": "green", "warn": "yellow", "fail": "bold red", "not run": "dim"}
     verdict = result.verdict
-    table = Table(title=f"verdict: {escape(result.scenario.title)}", title_justify="left")
+    table = Table(title=f"verdict: {shown(result.scenario.title)}", title_justify="left")
     for heading in ("check", "status", "number", "reason"):
         table.add_column(heading, justify="right" if heading == "number" else "left",
                          overflow="fold")
     for line in verdict.lines:
-        table.add_row(escape(line.check), f"[{colours[line.status]}]{line.status}[/]", number(line.value, 4),
-                      escape(line.reason))
+        table.add_row(shown(line.check), f"[{colours[line.status]}]{line.status}[/]", number(line.value, 4),
+                      shown(line.reason))
     out.print(table)
-    out.print(f"[{colours[verdict.overall]}]{escape(verdict.summary)}[/]", soft_wrap=True)
+    out.print(f"[{colours[verdict.overall]}]{shown(verdict.summary)}[/]", soft_wrap=True)
     if result.statement is not None:
-        out.print("uncertainty (GUM form): " + "; ".join(escape(text) for text in result.statement.lines),
+        out.print("uncertainty (GUM form): " + "; ".join(shown(text) for text in result.statement.lines),
                   soft_wrap=True)
     if result.best_fit is not None and result.best_fit.warning:
-        out.print(f"[bold red]warning:[/] {escape(result.best_fit.warning)}", soft_wrap=True)
-    out.print(f"wrote the appendix {escape(str(folder / 'appendix.html'))} (also .md and .tex), every number in "
-              f"{escape(str(folder / AUDIT_FILE))} and the figures in {escape(str(folder / FIGURES))}", soft_wrap=True)
+        out.print(f"[bold red]warning:[/] {shown(result.best_fit.warning)}", soft_wrap=True)
+    out.print(f"wrote the appendix {shown(str(folder / 'appendix.html'))} (also .md and .tex), every number in "
+              f"{shown(str(folder / AUDIT_FILE))} and the figures in {shown(str(folder / FIGURES))}", soft_wrap=True)

@@ -10,7 +10,7 @@ from ..validation.check import ProblemCheck, StrdReport, StrdSettings, check_fol
 from ..validation.extended_precision import EXTENDED_DIGITS
 from ..validation.grade import THRESHOLDS, VERDICT_LABELS, VERDICT_MEANINGS, Verdict
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_solver_option, add_step_factors_option,
-                     out, print_json, progress_bar)
+                     out, print_json, print_table, progress_bar)
 
 DEFAULTS = StrdSettings()
 
@@ -88,7 +88,11 @@ def show(report: StrdReport) -> None:
     several = len(settings.step_factors) > 1
     method = "Gauss-Newton" if settings.method == "gn" else "Levenberg-Marquardt"
     factors = ", ".join(f"{factor:g}" for factor in settings.step_factors)
-    table = Table(title=f"NIST StRD check: {method}, step factor {factors}, tolerance {settings.tolerance:g}, "
+    # A Levenberg-Marquardt step is taken whole unless asked otherwise: naming "step factor 1"
+    # for it read as if the method were Gauss-Newton's.
+    plain = settings.method == "lm" and tuple(settings.step_factors) == (1.0,)
+    scaled = "" if plain else f", step factor {factors}" if settings.method == "gn" else f", steps scaled by {factors}"
+    table = Table(title=f"NIST StRD check: {method}{scaled}, tolerance {settings.tolerance:g}, "
                         f"at most {settings.max_iterations} iterations", title_justify="left")
     for heading in ("problem", "difficulty", "start", "outcome", "verdict", "iterations", "LRE params",
                     "LRE SSR", "LRE SDs", "LRE SSR ext.*"):
@@ -99,7 +103,7 @@ def show(report: StrdReport) -> None:
     for check in report.checks:
         for start in range(2):
             table.add_row(*_row(check, start, several), end_section=start == 1)
-    out.print(table)
+    print_table(table)
     counts = report.counts()
     out.print(f"passed: {counts['passed_start1']} of {counts['problems']} from Start 1, "
               f"{counts['passed_start2']} of {counts['problems']} from Start 2 "
@@ -119,14 +123,17 @@ def _row(check: ProblemCheck, start: int, several: bool) -> list[str]:
     colour = "green" if grades.verdict[at] == Verdict.PASS else "red"
     # Where double precision cannot resolve the SSR, its digits (and the SDs') are shown but not judged.
     limited = bool(grades.precision_limited[at])
+    # A run that did not converge agrees in no meaningful number of digits: a dash, not "0.0".
+    converged = grades.outcome[at] == Outcome.CONVERGED
     cells = [
         (f"{check.name}*" if check.precision_limited else check.name) if start == 0 else "",
         check.difficulty if start == 0 else "", str(start + 1), Outcome(int(grades.outcome[at])).label,
         f"[{colour}]{check.label(*at)}[/]", str(int(grades.iterations[at])),
-        _digits(grades.lre_params[at], THRESHOLDS["params"]),
-        _digits(grades.lre_ssr[at], None if limited else THRESHOLDS["ssr"]),
-        _digits(grades.lre_sd[at], None if limited else THRESHOLDS["sd"]),
-        _digits(grades.extended_lre_ssr[at], THRESHOLDS["ssr"]),
+        *(_digits(value, needed) if converged else "—" for value, needed in (
+            (grades.lre_params[at], THRESHOLDS["params"]),
+            (grades.lre_ssr[at], None if limited else THRESHOLDS["ssr"]),
+            (grades.lre_sd[at], None if limited else THRESHOLDS["sd"]),
+            (grades.extended_lre_ssr[at], THRESHOLDS["ssr"]))),
     ]
     if several:
         cells.append(", ".join(f"{factor:g}" for factor in check.best_factors[start]))

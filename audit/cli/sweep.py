@@ -14,7 +14,7 @@ from ..sweep.run import SweepRequest, run_sweep
 from ..sweep.starts import DESIGNS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
                      add_scenario_argument, add_solver_option, add_step_factors_option, err, number, open_scenario, out,
-                     parallel_plan, print_json, progress_bar, write_results)
+                     parallel_plan, print_json, print_table, progress_bar, shown, write_results)
 
 DESCRIPTION = """\
 Does the fit depend on where it starts, or on the step factor? This command fits the model from
@@ -118,22 +118,29 @@ def show(result: SweepResult, files: list[Path]) -> None:
               f"; {chunks['computed']} chunk(s) computed, {chunks['reused']} taken from the cache")
     table = Table(title="how the runs ended, per step factor (shares of the starts)", title_justify="left")
     curve = bool(np.any(result.solution_same_curve) or np.any(result.curve_shares > result.shares[..., BEST]))
-    for heading in ("method", "step factor", *[label.replace("_", " ") for label in CATEGORIES],
-                    *(("best curve",) if curve else ()), "iterations (median / 90%)", "safe radius"):
+    # A kind no run of any setting ended in gets no column (named below the table), so that the
+    # columns left stay wide enough for their numbers at 80 columns.
+    seen = [k for k in range(len(CATEGORIES)) if k == BEST or np.any(result.shares[..., k] > 0)]
+    for heading in ("method", "step factor", *[CATEGORIES[k].replace("_", " ") for k in seen],
+                    *(("best curve",) if curve else ()), "iterations to the best (median / 90%)",
+                    "safe half-width (share of each range)"):
         table.add_column(heading, justify="left" if heading == "method" else "right")
     for m, method in enumerate(result.methods):
         for f, factor in enumerate(result.step_factors):
             mark = " *" if result.recommended == (m, f) else ""
-            shares = [_share(result.shares[m, f, k]) for k in range(len(CATEGORIES))]
+            shares = [_share(result.shares[m, f, k]) for k in seen]
             iterations = f"{number(result.iterations_median[m, f, BEST])} / {number(result.iterations_p90[m, f, BEST])}"
             same = (_share(result.curve_shares[m, f]),) if curve else ()
             table.add_row(method, f"{factor:g}{mark}", *shares, *same, iterations, number(result.region_radius[m, f], 3))
-    out.print(table)
+    print_table(table)
+    unseen = [CATEGORIES[k].replace("_", " ") for k in range(len(CATEGORIES)) if k not in seen]
+    if unseen:
+        out.print(f"no run ended {', '.join(unseen)}; * recommended", soft_wrap=True)
     _show_solutions(result)
     _show_recommendation(result)
     for note in result.warnings:
-        out.print(f"[yellow]note:[/] {note}", soft_wrap=True)
-    out.print("wrote " + ", ".join(str(path) for path in files), soft_wrap=True)
+        out.print(f"[yellow]note:[/] {shown(note)}", soft_wrap=True)
+    out.print("wrote " + ", ".join(shown(path) for path in files), soft_wrap=True)
 
 
 def _share(value: float) -> str:
@@ -145,19 +152,20 @@ def _show_solutions(result: SweepResult) -> None:
         out.print("[red]no run converged[/]")
         return
     table = Table(title=f"distinct solutions ({len(result.solution_ssr)})", title_justify="left")
-    shown = min(len(result.solution_ssr), 8)
-    relations = [_solution_kind(result, s) for s in range(shown)]
-    for heading in ("#", "SSR", *result.names, "largest share", *(("relation to the best",) if any(relations) else ())):
+    listed = min(len(result.solution_ssr), 8)
+    relations = [_solution_kind(result, s) for s in range(listed)]
+    for heading in ("#", "SSR", *map(shown, result.names), "share of starts (the setting reaching it most)",
+                    *(("relation to the best",) if any(relations) else ())):
         table.add_column(heading, justify="left" if heading == "relation to the best" else "right")
-    for s in range(shown):
+    for s in range(listed):
         table.add_row("best" if s == 0 else str(s + 1), number(result.solution_ssr[s], 8),
                       *(number(v, 8) for v in result.solution_params[s]),
-                      f"{np.max(result.solution_shares[..., s]):.1%}", *((relations[s],) if any(relations) else ()))
-    out.print(table)
-    if shown < len(result.solution_ssr):
-        outside = int(np.count_nonzero(~result.solution_inside[shown:]))
+                      f"{np.max(result.solution_shares[..., s]):.1%}", *((shown(relations[s]),) if any(relations) else ()))
+    print_table(table)
+    if listed < len(result.solution_ssr):
+        outside = int(np.count_nonzero(~result.solution_inside[listed:]))
         where = f" ({outside} of them outside the searched ranges)" if outside else ""
-        out.print(f"… and {len(result.solution_ssr) - shown} more in sweep.json{where}")
+        out.print(f"… and {len(result.solution_ssr) - listed} more in sweep.json{where}")
 
 
 def _solution_kind(result: SweepResult, s: int) -> str:
@@ -174,14 +182,14 @@ def _solution_kind(result: SweepResult, s: int) -> str:
 
 def _show_recommendation(result: SweepResult) -> None:
     if result.recommended is None:
-        out.print(f"[red]no recommendation:[/] {result.recommendation_reason}", soft_wrap=True)
+        out.print(f"[red]no recommendation:[/] {shown(result.recommendation_reason)}", soft_wrap=True)
         if result.next_step:
-            out.print(f"[bold]next step:[/] {result.next_step}", soft_wrap=True)
+            out.print(f"[bold]next step:[/] {shown(result.next_step)}", soft_wrap=True)
         return
     m, f = result.recommended
     out.print(f"[bold]recommended:[/] {result.methods[m]} with step factor {result.step_factors[f]:g}: "
               f"{result.shares[m, f, BEST]:.1%} of starts reach the best solution in "
-              f"{number(result.iterations_median[m, f, BEST])} iterations (median); {result.recommendation_reason}",
+              f"{number(result.iterations_median[m, f, BEST])} iterations (median); {shown(result.recommendation_reason)}",
               soft_wrap=True)
     if not np.isfinite(result.region_radius[m, f]):
         err.print(f"[yellow]no safe region:[/] no box around the best fit holding at least "
@@ -192,10 +200,10 @@ def _show_recommendation(result: SweepResult) -> None:
     for heading in ("parameter", "best fit", "safe from", "safe to", "scenario start", "inside"):
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     for j, name in enumerate(result.names):
-        table.add_row(name, number(result.best_params[j], 8), number(result.region_lower[m, f, j], 6),
+        table.add_row(shown(name), number(result.best_params[j], 8), number(result.region_lower[m, f, j], 6),
                       number(result.region_upper[m, f, j], 6), number(result.start[j], 6),
                       "yes" if result.start_inside_parameter[m, f, j] else "[red]no[/]")
-    out.print(table)
+    print_table(table)
     verdict = "inside" if result.start_inside[m, f] else "[red]outside[/]"
     out.print(f"the scenario's start lies {verdict} the safe region (distance {result.start_distance:.3f} of the "
               f"ranges from the best fit; the region reaches {result.region_radius[m, f]:.3f})")

@@ -20,7 +20,7 @@ from matplotlib.colors import LinearSegmentedColormap
 
 from ..derivatives.check import CENTRAL_POOR, REL_FLOOR, DerivativeAudit
 from .drawn_once import drawn_once
-from .style import EMPIRICAL, OUTCOME_STYLE, plt, save
+from .style import EMPIRICAL, OUTCOME_STYLE, plain_text, plt, save
 
 HAND_COLOUR = OUTCOME_STYLE["oscillating"][0]
 WRONG_COLOUR = OUTCOME_STYLE["diverged"][0]
@@ -60,11 +60,11 @@ def _columns(result: DerivativeAudit, folder: Path, formats: tuple[str, ...]) ->
 
 
 def _column_panel(result: DerivativeAudit, j: int, upper, lower) -> None:
-    name = result.names[j]
+    name = plain_text(result.names[j])
     k = int(result.worst_point[j])
     wrong = result.verdict[j] == "wrong"
     title_colour = WRONG_COLOUR if wrong else "black"
-    where = f" (at {result.labels[k]})" if k >= 0 else ""
+    where = f" (at {plain_text(result.labels[k])})" if k >= 0 else ""
     upper.set_title(f"∂f/∂{name}: {result.diagnoses[j].headline}{where}", color=title_colour, fontsize=10,
                     fontweight="bold" if wrong else "normal")
     if k < 0:
@@ -114,7 +114,7 @@ def _column_panel(result: DerivativeAudit, j: int, upper, lower) -> None:
 
 def _abscissa(result: DerivativeAudit) -> tuple[np.ndarray, str]:
     if len(result.predictor_names) == 1:
-        return result.x_rows[0], result.predictor_names[0]
+        return result.x_rows[0], plain_text(result.predictor_names[0])
     return np.arange(result.x_rows.shape[1], dtype=float), "observation"
 
 
@@ -141,8 +141,8 @@ def _points(result: DerivativeAudit, folder: Path, formats: tuple[str, ...]) -> 
                 shade = "white" if exponent[k, j] > -7 else "#333333"
                 text = f"≤{SMALLEST}" if exponent[k, j] <= SMALLEST else f"{exponent[k, j]:.0f}"
                 axes.text(j, k, text.replace("-", "−"), ha="center", va="center", fontsize=7, color=shade)
-    axes.set_xticks(range(n), [f"∂f/∂{name}" for name in result.names], fontsize=8, rotation=30, ha="right")
-    axes.set_yticks(range(count), result.labels, fontsize=8)
+    axes.set_xticks(range(n), [f"∂f/∂{plain_text(name)}" for name in result.names], fontsize=8, rotation=30, ha="right")
+    axes.set_yticks(range(count), [plain_text(label) for label in result.labels], fontsize=8)
     against = "exact" if result.reference == "exact" else "numeric"
     if hand:
         title = (f"log10 relative error, hand-derived vs {against}\n✗ share of observations wrong · hatched: "

@@ -16,7 +16,7 @@ import numpy as np
 from ..engine.band import confidence_band
 from ..engine.estimates import Estimates
 from ..engine.problem import Problem
-from .style import ASYMPTOTIC, EMPIRICAL, plt, save
+from .style import ASYMPTOTIC, EMPIRICAL, plain_text, plt, save
 
 #: Points of the drawn curve across the data's range of the predictor.
 CURVE_POINTS = 400
@@ -65,8 +65,8 @@ def write_figure(problem: Problem, estimates: Estimates, folder: Path, *, x_labe
         axes.set_title(f"widest half-width of the band: {np.max(half):.3g}", fontsize=9)
     else:
         axes.set_title("no band: the covariance is undefined (the Jacobian lost rank)", fontsize=9)
-    axes.set_ylabel(y_label)
+    axes.set_ylabel(plain_text(y_label))
     axes.legend(fontsize=8)
-    below.set_xlabel(x_label)
+    below.set_xlabel(plain_text(x_label))
     below.set_ylabel("data − fitted curve")
     return save(figure, folder, STEM, formats)

@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from scipy import stats
 
-from audit.figures.style import ASYMPTOTIC, EMPIRICAL, plt, save
+from audit.figures.style import ASYMPTOTIC, EMPIRICAL, plain_text, plt, save
 
 if TYPE_CHECKING:
     from audit.residuals import ResidualChecks
@@ -45,6 +45,7 @@ def write_figures(result: ResidualChecks, x, fitted, folder: Path, formats: tupl
     along_x.plot(first[result.order], weighted[result.order], color=EMPIRICAL, lw=0.6, alpha=0.5)
     along_x.scatter(first, weighted, s=14, color=EMPIRICAL, zorder=3)
     _zero_line(along_x)
+    x_label = plain_text(x_label)
     along_x.set_xlabel(x_label)
     along_x.set_ylabel("weighted residual r·√w")
     along_x.set_title(f"against {x_label}\nruns: {result.runs.status}, Durbin-Watson: {result.serial.status}",

@@ -48,6 +48,13 @@ EMPIRICAL = "#1b3a5c"
 DPI = 150
 
 
+def plain_text(text: object) -> str:
+    """A user's string (column or parameter name, title) for a matplotlib label: every '$' escaped,
+    so that a name holding dollar signs is drawn as written instead of parsed as mathtext (where an
+    unbalanced '$\\frac{a$' would stop the figure with an error)."""
+    return str(text).replace("$", r"\$")
+
+
 def new_figure(width: float = 6.4, height: float = 4.4):
     """A figure and axes with fitaudit's defaults."""
     figure, axes = plt.subplots(figsize=(width, height), constrained_layout=True)

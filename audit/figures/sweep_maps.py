@@ -16,7 +16,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 
 from ..sweep.result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
-from .style import OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, plt, save
+from .style import OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, plain_text, plt, save
 
 PANEL_SIZE = 3.1
 #: Other solutions drawn each in their own colour; later ones share one.
@@ -218,9 +218,9 @@ def cases_on_map_figure(result: SweepResult, basin_map: BasinMap, m: int, folder
 
 def _labels(axes, basin_map: BasinMap) -> None:
     for panel in axes[-1, :]:
-        panel.set_xlabel(basin_map.x_name)
+        panel.set_xlabel(plain_text(basin_map.x_name))
     for panel in axes[:, 0]:
-        panel.set_ylabel(basin_map.y_name)
+        panel.set_ylabel(plain_text(basin_map.y_name))
 
 
 def _heading(result: SweepResult, basin_map: BasinMap, m: int, what: str) -> str:

@@ -34,6 +34,10 @@ from .collinearity import Collinearity, collinearity_indices
 from .profiles import SIDE_STATUS, Profiles, plan_grid, profile_all
 from .weak_directions import WEAK_INDEX, condition_indices, describe, singular_values, weak_rows
 
+#: |correlation| from which a pair is called practically non-identifiable in words even when both
+#: profile intervals close: the data then fix little more than one combination of the two
+#: (common practice puts the line between 0.99 and 0.999; the stricter end, so as not to cry wolf).
+PRACTICAL_CORRELATION = 0.999
 NO_FIT = ("no fit from the scenario's starting values converged; "
           "find a working start first (fitaudit fit) before judging identifiability")
 
@@ -269,7 +273,11 @@ def _findings(result: Identifiability) -> list[dict]:
         if result.condition_index[row] >= WEAK_INDEX:
             found.append(("note", text))
     for (i, j), r in zip(result.strong_pairs, result.strong_correlation):
-        found.append(("note", f"{names[i]} and {names[j]} are strongly correlated (r = {r:+.4f})"))
+        if abs(r) >= PRACTICAL_CORRELATION:
+            found.append(("note", f"{names[i]} and {names[j]} are practically non-identifiable as a pair: correlated "
+                                  f"to r = {r:+.6f}, so the data fix little more than one combination of them"))
+        else:
+            found.append(("note", f"{names[i]} and {names[j]} are strongly correlated (r = {r:+.4f})"))
     collinearity = result.collinearity
     worst = np.flatnonzero(collinearity.index >= collinearity.limit)
     if len(worst):
