@@ -104,4 +104,5 @@ def test_dask_backend_needs_a_reachable_scheduler(capsys, tmp_path):
     # Port 9 on the loopback address has no scheduler: the connection is refused until the 10 s timeout.
     assert main(["sweep", BUNDLED, "--backend", "dask", "--scheduler", "tcp://127.0.0.1:9", "--starts", "16",
                  "-o", str(tmp_path)]) == 2
-    assert "cannot reach the Dask scheduler at tcp://127.0.0.1:9" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "--scheduler tcp://127.0.0.1:9: cannot reach the Dask scheduler" in err
