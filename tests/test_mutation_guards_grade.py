@@ -5,9 +5,10 @@ words."""
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from audit.engine.outcomes import Outcome
-from audit.validation.grade import Verdict, _verdicts, lre_ssr_at_certified, reference_model, verdict_label
+from audit.validation.grade import Verdict, _std_errors, _verdicts, lre_ssr_at_certified, reference_model, verdict_label
 from audit.validation.reference import log_relative_error
 
 CERTIFIED_SSR = 10.0
@@ -64,3 +65,26 @@ def test_the_ssr_at_the_certified_parameters_agrees_with_the_certificate(nist):
     nelson = reference_model(nist("Nelson"))
     assert nelson.response is not None
     np.testing.assert_allclose(nelson.problem.y, np.log(nist("Nelson").y), rtol=1e-15)  # numpy log
+
+
+def test_a_run_that_did_not_converge_claims_nothing_whatever_its_digits_or_ssr():
+    # Only a converged run is compared with the certificate (common practice: an unfinished
+    # iteration has no minimum to agree with), so every mix of digits and SSR stays "not converged".
+    assert verdicts([
+        (False, 20.0, 0.5, 0.5, 0.5),       # above the certified SSR, no digit right
+        (False, 5.0, 3.0, 0.5, 2.0),        # below it
+        (False, 10.0, 3.0, 11.0, 2.0),      # at it, parameters and SDs short
+        (False, 10.0, 0.5, 11.0, 11.0),     # at it, a parameter more than 10 % off
+    ]) == ["NOT_CONVERGED"] * 4
+
+
+def test_standard_deviations_at_the_certified_point_are_the_certified_ones(nist):
+    # Misra1a, NIST certified values (shared file): at b = (2.3894212918E+02, 5.5015643181E-04)
+    # the standard deviations are 2.7070075241E+00 and 7.2668688436E-06 and the SSR
+    # 1.2455138894E-01; the function hands back the n SDs then the SSR they were computed with.
+    problem = reference_model(nist("Misra1a")).problem
+    result = _std_errors(problem, np.array([2.3894212918E+02, 5.5015643181E-04]))
+    assert result == pytest.approx([2.7070075241E+00, 7.2668688436E-06, 1.2455138894E-01], rel=1e-6)
+    # A point that is not finite (a diverged run) has no standard deviations: n + 1 NaNs.
+    missing = _std_errors(problem, np.array([np.nan, 5.5015643181E-04]))
+    assert missing.shape == (3,) and np.all(np.isnan(missing))
