@@ -4,11 +4,14 @@ NIST StRD nonlinear problems), never read back from the code's own constants; an
 words."""
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 
+from audit.engine.batch import BatchFit
 from audit.engine.outcomes import Outcome
-from audit.validation.grade import Verdict, _std_errors, _verdicts, lre_ssr_at_certified, reference_model, verdict_label
+from audit.validation.grade import Verdict, _std_errors, _verdicts, grade_runs, lre_ssr_at_certified, reference_model, verdict_label
 from audit.validation.reference import log_relative_error
 
 CERTIFIED_SSR = 10.0
@@ -88,3 +91,27 @@ def test_standard_deviations_at_the_certified_point_are_the_certified_ones(nist)
     # A point that is not finite (a diverged run) has no standard deviations: n + 1 NaNs.
     missing = _std_errors(problem, np.array([np.nan, 5.5015643181E-04]))
     assert missing.shape == (3,) and np.all(np.isnan(missing))
+
+
+def test_grading_reports_the_ssr_digits_above_rounding_and_stays_quiet_on_a_diverged_run(nist):
+    # Two runs of Misra1a: one at NIST's certified parameters, one that diverged (b1 = inf).
+    fitted = reference_model(nist("Misra1a"))
+    y, certified = fitted.problem.y, fitted.reference.certified
+    params = np.array([certified, [np.inf, certified[1]]])
+    ssr = np.array([fitted.problem.ssr(certified[None, :])[0], np.inf])
+    fit = BatchFit(params=params, ssr=ssr, iterations=np.array([5, 9]),
+                   outcome=np.array([Outcome.CONVERGED, Outcome.DIVERGED]), max_rel_change=np.zeros(2),
+                   step_factor=np.ones(2), names=fitted.problem.names, method="gn")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")          # inf − inf in the diverged run must not print a warning
+        grades = grade_runs(fitted, fit)
+    # Digits of the SSR above the rounding floor, by hand: each residual r = y − f carries an
+    # error up to eps·(|y| + |f|), so SSR = Σr² is uncertain by 2·eps·Σ|r|(|y| + |f|) (first-order
+    # error propagation); the digits are −log10 of that over the SSR, here about 12.6.
+    fitted_values = certified[0] * (1 - np.exp(-certified[1] * fitted.reference.x.ravel()))   # NIST's model line
+    residual = y - fitted_values
+    floor = 2 * np.finfo(float).eps * np.sum(np.abs(residual) * (np.abs(y) + np.abs(fitted_values))) / ssr[0]
+    assert grades.ssr_digits[0] == pytest.approx(-np.log10(floor), rel=1e-6)
+    assert not grades.precision_limited[0] and np.isnan(grades.extended_ssr[0])
+    assert [Verdict(int(code)).name for code in grades.verdict] == ["PASS", "NOT_CONVERGED"]
+    assert np.all(np.isnan(grades.std_errors[1]))
