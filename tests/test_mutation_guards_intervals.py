@@ -8,10 +8,12 @@ from scipy.special.
 from __future__ import annotations
 
 import json
+import warnings
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
-from scipy import special
+from scipy import special, stats
 
 from audit.errors import InputError
 from audit.uncertainty.disagreement import compare_intervals
@@ -161,3 +163,57 @@ def test_to_dict_keys_carry_the_numbers():
     assert data["arm_ratio"] == [2.0, 1.0]              # (3 − 1)/(1 − 0), (2.5 − 2)/(2 − 1.5)
     assert data["bias_ratio"] == [0.25, 0.0]            # 0.5/2
     assert data["flags"][0] == {"parameter": "a", "kind": "asymmetry", "reason": result.flags[0].reason}
+
+
+def test_acceleration_is_scale_free_also_below_a_unit_spread():
+    # a = Σd³ / (6·(Σd²)^{3/2}) is unchanged when every jackknife value is multiplied by c
+    # (numerator and denominator both scale by c³; Efron & Tibshirani 1993, ch. 14, by hand):
+    # 0.1, 0.2, 0.4 give the a of 1, 2, 4 worked out above, though their Σd² = 0.042/0.9 < 1.
+    acceleration = jackknife_acceleration(np.array([[0.1], [0.2], [0.4]]))
+    assert acceleration[0] == pytest.approx((-60 / 27) / (6 * (42 / 9) ** 1.5), rel=1e-12)
+
+
+def test_single_precision_jackknife_values_are_widened_first():
+    # Jackknife values handed over in float32 (a model written in single precision) get the
+    # acceleration computed in float64: the reference is the same formula in float64 by numpy.
+    jackknife = np.array([[0.1], [0.2], [0.4]], dtype=np.float32)
+    wide = jackknife.astype(float)[:, 0]
+    spread = wide.mean() - wide
+    assert jackknife_acceleration(jackknife)[0] == pytest.approx(
+        np.sum(spread**3) / (6 * np.sum(spread**2) ** 1.5), rel=1e-12)
+
+
+def test_two_parameters_each_get_the_bca_interval_scipy_gives_for_that_statistic():
+    # Two statistics of one skewed sample, the standard deviation and the mean, bootstrapped
+    # together as the columns of (B, 2) replicates: each column must equal what
+    # scipy.stats.bootstrap(method="BCa") gives for that statistic alone from the same replicates
+    # (its own z0, jackknife acceleration and quantiles), so no count, sum or quantile may mix columns.
+    rng = np.random.default_rng(7)
+    data = rng.exponential(2.0, size=25)
+    statistics = (lambda sample, axis=-1: np.std(sample, axis=axis, ddof=1),
+                  lambda sample, axis=-1: np.mean(sample, axis=axis))
+    resampled = data[rng.integers(0, data.size, size=(4000, data.size))]
+    replicates = np.column_stack([statistic(resampled) for statistic in statistics])
+    jackknife = np.array([[statistic(np.delete(data, i)) for statistic in statistics] for i in range(data.size)])
+    estimate = np.array([statistic(data) for statistic in statistics])
+    ours = bca_interval(replicates, estimate, jackknife_acceleration(jackknife), 0.9)
+    for column, statistic in enumerate(statistics):
+        given = SimpleNamespace(bootstrap_distribution=replicates[:, column])
+        reference = stats.bootstrap((data,), statistic, n_resamples=0, bootstrap_result=given, method="BCa",
+                                    confidence_level=0.9).confidence_interval
+        assert ours.lower[column] == pytest.approx(reference.low, rel=1e-10)
+        assert ours.upper[column] == pytest.approx(reference.high, rel=1e-10)
+    # Meaningful: the two columns differ in how many replicates fall below their estimates.
+    below = (replicates < estimate).mean(axis=0)
+    assert abs(below[0] - below[1]) > 0.02
+
+
+def test_undefined_cases_give_nan_without_a_warning():
+    # The NaN cases the docstrings promise (worked out above: a jackknife that does not move,
+    # 0/0; an estimate below every replicate, z0 = Φ⁻¹(0) = −inf, so 0·(−inf) in the level) are
+    # answers, not accidents: they must not print numpy's RuntimeWarning into a command's output.
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert np.isnan(jackknife_acceleration(np.array([[5.0], [5.0], [5.0]]))[0])
+        beyond = bca_interval(np.array([[1.0], [2.0], [3.0]]), np.array([0.5]), np.array([0.0]), 0.9)
+    assert np.isnan(beyond.lower[0]) and np.isnan(beyond.upper[0])
