@@ -7,6 +7,7 @@ from pathlib import Path
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
+from ..parallel.plan import local_mapper
 from ..report.result import AUDIT_FILE, FIGURES, AuditResult
 from ..report.run import QUICK_POINTS, QUICK_RESOLUTION, QUICK_SAMPLES, STAGES, run_audit
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
@@ -72,7 +73,7 @@ def run(args: argparse.Namespace) -> int:
         result = run_audit(scenario, out=args.out, quick=args.quick, plan=plan, on_progress=advance,
                            step_factors=args.step_factors)
         progress.update(task, description="writing files", completed=len(STAGES))
-        files = result.write(args.out)
+        files = result.write(args.out, local_mapper(plan))
     if args.json:
         payload = result.to_dict()
         print_json({key: payload[key] for key in ("verdict", "best_fit", "uncertainty_statement", "not_run")}

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import argparse
+import functools
 import time
 from pathlib import Path
 
@@ -9,6 +10,7 @@ import numpy as np
 from rich.table import Table
 
 from ..figures.sweep import write_figures
+from ..parallel.plan import local_mapper
 from ..sweep.result import BEST, CATEGORIES, SweepResult
 from ..sweep.run import SweepRequest, run_sweep
 from ..sweep.starts import DESIGNS
@@ -103,7 +105,7 @@ def run(args: argparse.Namespace) -> int:
 
         result = run_sweep(scenario, request, plan, folder, on_progress=advance)
     # The other stages audit this sweep's reference only while the problem stays the same.
-    files = write_results(result, folder, "sweep", write_figures)
+    files = write_results(result, folder, "sweep", functools.partial(write_figures, mapper=local_mapper(plan)))
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:

@@ -30,16 +30,18 @@ def drawn_once(*bookkeeping: str) -> Callable[[Callable[..., list[Path]]], Calla
     """
     def wrap(draw: Callable[..., list[Path]]) -> Callable[..., list[Path]]:
         @functools.wraps(draw)
-        def write(result, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
-            return _write(draw, bookkeeping, result, folder, formats)
+        def write(result, folder: Path, formats: tuple[str, ...] = ("png",), **options) -> list[Path]:
+            return _write(draw, bookkeeping, result, folder, formats, options)
 
         return write
 
     return wrap
 
 
-def _write(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tuple[str, ...]) -> list[Path]:
-    """The files of ``result``'s figures in ``folder``: those recorded there, or drawn now."""
+def _write(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tuple[str, ...],
+           options: dict) -> list[Path]:
+    """The files of ``result``'s figures in ``folder``: those recorded there, or drawn now (``options``
+    go to ``draw`` and say how to draw, not what: they are not digested)."""
     stage = draw.__module__.rsplit(".", 1)[-1]
     folder = Path(folder)
     record = folder / f".{stage}-drawn.json"
@@ -51,7 +53,7 @@ def _write(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tu
     drawn = kept.get("files") if kept.get("digest") == digest else None
     if drawn is not None and all((folder / name).is_file() for name in drawn):
         return [folder / name for name in drawn]
-    paths = draw(result, folder, formats)
+    paths = draw(result, folder, formats, **options)
     folder.mkdir(parents=True, exist_ok=True)
     record.write_text(json.dumps({"digest": digest, "files": [Path(path).name for path in paths]}))
     return paths

@@ -8,6 +8,8 @@
 """
 from __future__ import annotations
 
+import functools
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -16,7 +18,7 @@ from matplotlib.patches import Patch
 
 from ..sweep.result import CATEGORIES, SweepResult
 from .drawn_once import drawn_once
-from .style import OUTCOME_MARKERS, OUTCOME_STYLE, plt, save
+from .style import OUTCOME_MARKERS, OUTCOME_STYLE, decade_ticks, plt, save
 from .sweep_maps import basin_figure, cases_on_map_figure, iteration_figure
 
 #: Line styles that tell step factors apart in the path plots (cycled).
@@ -27,18 +29,35 @@ PATH_MARGIN = 0.5
 
 
 @drawn_once("chunks", "cache")
-def write_figures(result: SweepResult, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
-    """Draw every sweep figure into ``folder`` in each of ``formats``; return the files written."""
-    folder = Path(folder)
-    paths = _outcome_bars(result, folder, formats)
-    for basin_map in result.maps:
-        for m, method in enumerate(result.methods):
-            suffix = f"{basin_map.x_name}-{basin_map.y_name}" + ("" if method == "gn" else f"-{method}")
-            paths += basin_figure(result, basin_map, m, folder, f"sweep-basins-{suffix}", formats)
-            paths += iteration_figure(result, basin_map, m, folder, f"sweep-iterations-{suffix}", formats)
-            paths += cases_on_map_figure(result, basin_map, m, folder, f"sweep-cases-map-{suffix}", formats)
-    paths += _paths_figure(result, folder, formats)
-    return paths
+def write_figures(result: SweepResult, folder: Path, formats: tuple[str, ...] = ("png",), *,
+                  mapper: Callable = map) -> list[Path]:
+    """Draw every sweep figure into ``folder`` in each of ``formats``; return the files written.
+
+    ``mapper(function, items)`` runs the independent figures, e.g. over worker processes of this
+    machine (the builtin ``map`` by default); the files are the same either way.
+    """
+    draw = functools.partial(_draw, result, Path(folder), formats)
+    return [path for paths in mapper(draw, _figure_list(result)) for path in paths]
+
+
+def _figure_list(result: SweepResult) -> list[tuple]:
+    """What to draw, one entry a figure: (kind,) or (kind, map index, method index)."""
+    per_map = [(kind, i, m) for i in range(len(result.maps)) for m in range(len(result.methods))
+               for kind in ("basins", "iterations", "cases-map")]
+    return [("outcomes",), *per_map, ("cases",)]
+
+
+def _draw(result: SweepResult, folder: Path, formats: tuple[str, ...], figure: tuple) -> list[Path]:
+    kind = figure[0]
+    if kind == "outcomes":
+        return _outcome_bars(result, folder, formats)
+    if kind == "cases":
+        return _paths_figure(result, folder, formats)
+    basin_map, m = result.maps[figure[1]], figure[2]
+    method = result.methods[m]
+    suffix = f"{basin_map.x_name}-{basin_map.y_name}" + ("" if method == "gn" else f"-{method}")
+    draw_map = {"basins": basin_figure, "iterations": iteration_figure, "cases-map": cases_on_map_figure}[kind]
+    return draw_map(result, basin_map, m, folder, f"sweep-{kind}-{suffix}", formats)
 
 
 def _outcome_bars(result: SweepResult, folder: Path, formats: tuple[str, ...]) -> list[Path]:
@@ -111,7 +130,7 @@ def _paths_figure(result: SweepResult, folder: Path, formats: tuple[str, ...]) -
 def _path_limits(axes, result: SweepResult, j: int) -> None:
     low, high = result.lower[j], result.upper[j]
     if result.log[j]:
-        axes.set_yscale("log")
+        decade_ticks(axes, "y")
         span = np.log10(high / low)
         axes.set_ylim(low / 10 ** (PATH_MARGIN * span), high * 10 ** (PATH_MARGIN * span))
     else:

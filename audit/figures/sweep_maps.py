@@ -16,7 +16,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 
 from ..sweep.result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
-from .style import OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, plain_text, plt, save
+from .style import OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, decade_ticks, plain_text, plt, save
 
 PANEL_SIZE = 3.1
 #: Other solutions drawn each in their own colour; later ones share one.
@@ -99,9 +99,9 @@ def draw_classes(axes, basin_map: BasinMap, classes: np.ndarray, looks, alpha: f
 
 def _axes_style(axes, basin_map: BasinMap) -> None:
     if basin_map.x_log:
-        axes.set_xscale("log")
+        decade_ticks(axes, "x")
     if basin_map.y_log:
-        axes.set_yscale("log")
+        decade_ticks(axes, "y")
     axes.set_xlim(*cell_edges(basin_map.x_values, basin_map.x_log)[[0, -1]])
     axes.set_ylim(*cell_edges(basin_map.y_values, basin_map.y_log)[[0, -1]])
 

@@ -5,6 +5,7 @@ chunks, and so the results, are the same whatever runs them; only the wall-clock
 """
 from __future__ import annotations
 
+import functools
 import os
 import time
 from collections.abc import Callable, Iterable, Iterator, Sized
@@ -88,6 +89,13 @@ def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: Para
         else:
             parallel = joblib.Parallel(n_jobs=plan.jobs, return_as="generator", pre_dispatch="2*n_jobs")
         yield from parallel(joblib.delayed(function)(chunk) for chunk in chunks)
+
+
+def local_mapper(plan: ParallelPlan) -> Callable[[Callable[[Any], Any], Sized], Iterator[Any]]:
+    """``mapper(function, items)`` over this machine's processes, for work that writes files here
+    (figures): a Dask plan's workers may sit on other machines, so it maps over local cores."""
+    local = plan if plan.backend == "processes" else ParallelPlan()
+    return functools.partial(map_chunks, plan=local)
 
 
 class _dask_backend:

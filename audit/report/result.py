@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import html
 import json
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -86,9 +87,10 @@ class AuditResult:
             "provenance": self.provenance,
         })
 
-    def write_figures(self, folder: Path) -> list[Path]:
+    def write_figures(self, folder: Path, mapper: Callable = map) -> list[Path]:
         """Every figure of the stages that ran, PNG (HTML, Markdown) and PDF (LaTeX), into ``folder``;
-        the paths written."""
+        the paths written. ``mapper`` runs the sweep's independent figures (see
+        ``figures.sweep.write_figures``)."""
         scenario = self.scenario
         paths: list[Path] = []
         if self.asymptotic is not None:
@@ -97,7 +99,7 @@ class AuditResult:
         if self.derivatives is not None:
             paths += derivative_figures.write_figures(self.derivatives, folder, BOTH_FORMATS)
         if self.sweep is not None:
-            paths += sweep_figures.write_figures(self.sweep, folder, BOTH_FORMATS)
+            paths += sweep_figures.write_figures(self.sweep, folder, BOTH_FORMATS, mapper=mapper)
         if self.bootstrap is not None:
             paths += bootstrap_figures.write_figures(self.bootstrap, folder, BOTH_FORMATS)
         if self.identifiability is not None:
@@ -110,8 +112,9 @@ class AuditResult:
                                                     x_label=scenario.x_names[0])
         return paths
 
-    def write(self, folder: str | Path) -> list[Path]:
-        """Write ``folder/audit.json``, ``folder/figures/*.{png,pdf}`` and the appendix files.
+    def write(self, folder: str | Path, mapper: Callable = map) -> list[Path]:
+        """Write ``folder/audit.json``, ``folder/figures/*.{png,pdf}`` and the appendix files
+        (``mapper``: see ``write_figures``).
 
         Returns:
             The paths written.
@@ -122,7 +125,7 @@ class AuditResult:
         folder = Path(folder)
         try:
             folder.mkdir(parents=True, exist_ok=True)
-            figures = self.write_figures(folder / FIGURES)
+            figures = self.write_figures(folder / FIGURES, mapper)
             document = build_appendix(self, figures)
             audit_file = folder / AUDIT_FILE
             audit_file.write_text(json.dumps(self.to_dict(), indent=1, allow_nan=False) + "\n")
