@@ -17,7 +17,7 @@ from scipy.optimize import least_squares
 from audit.cli import main
 from audit.figures.sweep import write_figures
 from audit.inputs.scenario import load_scenario
-from audit.parallel.plan import ParallelPlan
+from audit.parallel.plan import ParallelPlan, local_mapper
 from audit.sweep.recommend import histogram_percentile
 from audit.sweep.result import CATEGORIES
 from audit.sweep.run import SweepRequest, run_sweep
@@ -253,6 +253,16 @@ def test_figures_are_drawn_once_per_result_and_as_pdf_only_when_asked(twin_folde
     assert [path.stat().st_mtime_ns for path in paths] == drawn   # not drawn again
     with_pdf = write_figures(result, tmp_path / "figures", formats=("png", "pdf"))
     assert sorted(path.name for path in with_pdf) == sorted(f"{stem}.{kind}" for stem in stems for kind in ("png", "pdf"))
+
+
+def test_figures_drawn_by_worker_processes_equal_those_drawn_here(twin_folder, tmp_path):
+    # Reference: the same figures drawn one after another in this process (the builtin map); a
+    # figure drawn in a worker must be the same file, byte for byte, in the same order.
+    _, result = sweep(twin_folder)
+    here = write_figures(result, tmp_path / "here")
+    there = write_figures(result, tmp_path / "workers", mapper=local_mapper(ParallelPlan(jobs=2)))
+    assert [path.name for path in there] == [path.name for path in here]
+    assert [path.read_bytes() for path in there] == [path.read_bytes() for path in here]
 
 
 def test_command_writes_json_and_figures(twin_folder, tmp_path, capsys):
