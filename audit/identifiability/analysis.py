@@ -290,7 +290,8 @@ def _findings(result: Identifiability) -> list[dict]:
 
 
 def identify_scenario(scenario, *, points: int | None = None, plan: ParallelPlan | None = None,
-                      on_step=None, reference: SweepReference | None = None) -> Identifiability:
+                      on_step=None, reference: SweepReference | None = None,
+                      known: KnownFit | None = None) -> Identifiability:
     """The identifiability stage for a loaded ``Scenario`` at its best known fit (``analyse``).
 
     Args:
@@ -299,6 +300,8 @@ def identify_scenario(scenario, *, points: int | None = None, plan: ParallelPlan
         plan, on_step: as for ``analyse``.
         reference: what a sweep of this scenario found; the stage analyses its in-range
             reference, else the best fit from the start (``best_fit.best_known_fit``).
+        known: that best known fit when the caller has it already (the audit run, so that every
+            stage audits the same fit); ``reference`` is then not used.
 
     Raises:
         InputError: for fewer than 5 points, or when no fit from the start converges.
@@ -308,8 +311,9 @@ def identify_scenario(scenario, *, points: int | None = None, plan: ParallelPlan
         if points < 5:
             raise InputError(f"--profile-points {points}: a profile needs at least 5 grid points")
         settings = replace(settings, profile_points=points)
-    known = best_known_fit(scenario.problem, scenario.start, **scenario.solver.fit_options(), reference=reference,
-                           accept_lost_rank=True)
+    if known is None:
+        known = best_known_fit(scenario.problem, scenario.start, **scenario.solver.fit_options(), reference=reference,
+                               accept_lost_rank=True)
     if known is None:
         raise InputError(NO_FIT)
     lower = np.array([p.lower for p in scenario.parameters])

@@ -132,9 +132,9 @@ def run_audit(path_or_scenario: str | Path | Scenario, *, out: str | Path | None
         report("bootstrap", done[0] / refits)
 
     bootstrap = _after_best(stages, best, "bootstrap", lambda: bootstrap_scenario(
-        scenario, samples=samples, reference=reference, plan=plan, progress=bootstrap_progress), hint)
+        scenario, samples=samples, known=best, plan=plan, progress=bootstrap_progress), hint)
     identifiability = _after_best(stages, best, "identifiability", lambda: identify_scenario(
-        scenario, reference=reference, plan=plan,
+        scenario, known=best, plan=plan,
         on_step=lambda done, total: report("identifiability", done / max(total, 1))), hint)
     report("identifiability", 1.0)
 

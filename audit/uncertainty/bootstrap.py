@@ -340,7 +340,7 @@ def total_refits(problem: Problem, samples: int) -> int:
 def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples: int | None = None,
                        step_factor: float | None = None, wild_multipliers: str | None = None,
                        leverage_adjusted: bool | None = None, reference: SweepReference | None = None,
-                       plan: ParallelPlan | None = None,
+                       known: KnownFit | None = None, plan: ParallelPlan | None = None,
                        progress: Callable[[int], None] | None = None) -> BootstrapResult:
     """``run_bootstrap`` with the scenario's [bootstrap] and [solver] settings.
 
@@ -351,6 +351,8 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
         step_factor: step factor of the refits (default: the first of [solver] step_factors).
         reference: what a sweep of this scenario found; the refits start from the best known
             fit (``best_fit.best_known_fit``): its in-range reference, else the best from the start.
+        known: that best known fit when the caller has it already (the audit run); ``reference``
+            is then not used.
         plan, progress: as for ``run_bootstrap``.
 
     Raises:
@@ -361,7 +363,8 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
                           method=solver.method, tolerance=solver.tolerance, max_iterations=solver.max_iterations)
     if not 0 < refit.step_factor <= 1:
         raise InputError(f"step factor {refit.step_factor}: must lie in (0, 1]")
-    known = best_known_fit(scenario.problem, scenario.start, **solver.fit_options(), reference=reference)
+    if known is None:
+        known = best_known_fit(scenario.problem, scenario.start, **solver.fit_options(), reference=reference)
     if known is None:
         raise InputError(f"{scenario.path}: no fit from the scenario's start converged, with any of the step "
                          "factors or with Levenberg-Marquardt; the bootstrap needs a converged fit: find a "
