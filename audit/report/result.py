@@ -1,6 +1,7 @@
 """The result of ``run_audit``: every stage's result, the verdict, provenance, and how to write them."""
 from __future__ import annotations
 
+import functools
 import html
 import json
 from collections.abc import Callable
@@ -89,28 +90,27 @@ class AuditResult:
 
     def write_figures(self, folder: Path, mapper: Callable = map) -> list[Path]:
         """Every figure of the stages that ran, PNG (HTML, Markdown) and PDF (LaTeX), into ``folder``;
-        the paths written. ``mapper`` runs the sweep's independent figures (see
-        ``figures.sweep.write_figures``)."""
+        the paths written, stage by stage.
+
+        ``mapper(function, items)`` runs the stages' figure writers, which are independent, e.g. over
+        worker processes of this machine (``parallel.plan.local_mapper``); the builtin ``map`` by default.
+        """
         scenario = self.scenario
-        paths: list[Path] = []
+        writers = []
         if self.asymptotic is not None:
-            paths += fit_figure.write_figure(scenario.problem, self.asymptotic, folder,
-                                             x_label=scenario.x_names[0], y_label=scenario.y_name)
-        if self.derivatives is not None:
-            paths += derivative_figures.write_figures(self.derivatives, folder, BOTH_FORMATS)
-        if self.sweep is not None:
-            paths += sweep_figures.write_figures(self.sweep, folder, BOTH_FORMATS, mapper=mapper)
-        if self.bootstrap is not None:
-            paths += bootstrap_figures.write_figures(self.bootstrap, folder, BOTH_FORMATS)
-        if self.identifiability is not None:
-            paths += identifiability_figures.write_figures(self.identifiability, folder, BOTH_FORMATS)
+            writers.append(functools.partial(fit_figure.write_figure, scenario.problem, self.asymptotic, folder,
+                                             x_label=scenario.x_names[0], y_label=scenario.y_name))
+        for result, stage in ((self.derivatives, derivative_figures), (self.sweep, sweep_figures),
+                              (self.bootstrap, bootstrap_figures), (self.identifiability, identifiability_figures)):
+            if result is not None:
+                writers.append(functools.partial(stage.write_figures, result, folder, BOTH_FORMATS))
         if self.residuals is not None:
             problem = scenario.problem
             fitted = problem.predict(self.best_fit.params[None, :])[0]
             x = problem.x if problem.x.ndim == 1 else problem.x.T
-            paths += residual_figures.write_figures(self.residuals, x, fitted, folder, formats=BOTH_FORMATS,
-                                                    x_label=scenario.x_names[0])
-        return paths
+            writers.append(functools.partial(residual_figures.write_figures, self.residuals, x, fitted, folder,
+                                             formats=BOTH_FORMATS, x_label=scenario.x_names[0]))
+        return [path for paths in mapper(_called, writers) for path in paths]
 
     def write(self, folder: str | Path, mapper: Callable = map) -> list[Path]:
         """Write ``folder/audit.json``, ``folder/figures/*.{png,pdf}`` and the appendix files
@@ -155,3 +155,8 @@ def write_appendix(document: Document, folder: Path) -> list[Path]:
     """
     return [write_html(document, folder / "appendix.html"), write_markdown(document, folder / "appendix.md"),
             write_latex(document, folder / "appendix.tex")]
+
+
+def _called(writer: Callable[[], list[Path]]) -> list[Path]:
+    """Run one figure writer (a module-level function, so that worker processes can be sent it)."""
+    return writer()
