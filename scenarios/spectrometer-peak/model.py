@@ -1,14 +1,18 @@
-"""A Gaussian emission line on a sloped baseline: y = b0 + b1·(λ − 650) + h·exp(−((λ − c)/w)²/2)."""
+"""A flat-topped line (a wide slit's image) on a sloped baseline:
+y = b0 + b1·(λ − 650) + h·2^(−((λ − c)/w)⁴), so that w is the half width at half maximum."""
 import numpy as np
+
+LN2 = np.log(2.0)
 
 
 def model(wavelength_nm, b0, b1, h, c, w):
     u = (wavelength_nm - c) / w
-    return b0 + b1 * (wavelength_nm - 650.0) + h * np.exp(-0.5 * u**2)
+    return b0 + b1 * (wavelength_nm - 650.0) + h * np.exp(-LN2 * u**4)
 
 
 def jacobian(wavelength_nm, b0, b1, h, c, w):
     u = (wavelength_nm - c) / w
-    line = np.exp(-0.5 * u**2)
-    # With g = exp(−u²/2): dg/du = −u·g, du/dc = −1/w, du/dw = −u/w.
-    return [np.ones_like(u), wavelength_nm - 650.0 + 0.0 * u, line, h * line * u / w, h * line * u**2 / w]
+    line = np.exp(-LN2 * u**4)
+    # With g = exp(−ln2·u⁴): dg/du = −4·ln2·u³·g, du/dc = −1/w, du/dw = −u/w.
+    slope = 4.0 * LN2 * h * line * u**3 / w
+    return [np.ones_like(u), wavelength_nm - 650.0 + 0.0 * u, line, slope, slope * u]
