@@ -161,16 +161,17 @@ def test_the_top_percentile_is_the_largest_value_even_one_in_two_hundred():
         assert histogram_percentile(histogram, q) == np.percentile(values, q, method="inverted_cdf")
 
 
-def test_a_region_can_end_in_the_first_bin():
+def test_a_region_can_end_in_the_first_bin_at_exactly_99_percent():
     total = np.zeros(DISTANCE_BINS)
     best = np.zeros((1, 1, DISTANCE_BINS))
     farthest = np.full(DISTANCE_BINS, -np.inf)
     total[[0, 1, 5]] = 100
     farthest[[0, 1, 5]] = [0.0007, 0.0012, 0.0051]
-    best[0, 0, [0, 1, 5]] = [100, 50, 100]            # 100/100, then 150/200 = 75 %, 250/300
-    # The cube ends in bin 0 with its 100 starts, half-width the farthest of them, 0.0007 (hand count).
+    best[0, 0, [0, 1, 5]] = [99, 50, 100]             # 99/100, then 149/200 = 74.5 %, 249/300
+    # 99 of 100 is exactly the level (99/100 rounds to the same double as 0.99), so the cube ends in
+    # bin 0 with its 100 starts, half-width the farthest of them, 0.0007 (hand count).
     last, radius, starts, share = safe_regions(total, best, farthest)
-    assert last[0, 0] == 0 and starts[0, 0] == 100 and share[0, 0] == 1.0 and radius[0, 0] == 0.0007
+    assert last[0, 0] == 0 and starts[0, 0] == 100 and share[0, 0] == 0.99 and radius[0, 0] == 0.0007
 
 
 def test_empty_leading_bins_are_not_safe_and_raise_no_floating_point_warning():
