@@ -1,15 +1,17 @@
-"""Asymptotic estimates pinned number by number against numpy.linalg and scipy.stats on a weighted
-straight line, where the linearisation is exact: covariance, standard errors, correlation, t
-quantile and interval ends, condition number, the JSON keys and every refusal."""
+"""Asymptotic estimates pinned number by number against numpy.linalg and scipy.stats on weighted
+lines and quadratics, where the linearisation is exact: covariance, standard errors, correlation, t
+quantile and interval ends, condition number, the JSON keys, the rank limit and every refusal."""
 from __future__ import annotations
 
 import json
+import warnings
 
 import numpy as np
 import pytest
 from scipy import stats
 
 from audit.engine.estimates import estimate
+from audit.engine.linsolve import RANK_TOLERANCE
 from audit.engine.problem import Problem
 from audit.errors import InputError
 
@@ -116,3 +118,103 @@ def test_as_many_parameters_as_data_is_refused_and_one_spare_point_is_enough():
     three_points = Problem(model=line, x=X[:3], y=Y[:3], names=("intercept", "slope"))
     result = estimate(three_points, np.array([1.0, 2.0]))
     assert result.dof == 1 and result.t_quantile == pytest.approx(stats.t.ppf(0.975, 1), rel=1e-12)
+
+
+SMALL_X = np.array([0.0, 0.01, 0.02, 0.03, 0.05, 0.08, 0.09])     # columns x and x² of norm below 1
+
+
+def quadratic(x, a, b, c):
+    return a + b * x + c * x**2
+
+
+def quadratic_jacobian(x, a, b, c):
+    return [np.ones_like(x), x + 0 * b, x**2 + 0 * c]
+
+
+def test_three_parameters_on_a_small_scale_match_numpy_linalg():
+    # A weighted quadratic is linear in its parameters, so the asymptotic numbers are exact
+    # (Seber & Wild, Nonlinear Regression, 1989, ch. 2): Cov = s²·(XᵀWX)⁻¹ by numpy.linalg.inv,
+    # the condition number of the column-scaled weighted design by numpy.linalg.cond (2-norm).
+    problem = Problem(model=quadratic, jacobian=quadratic_jacobian, x=SMALL_X, y=Y, names=("a", "b", "c"),
+                      weights=WEIGHTS)
+    design = np.column_stack([np.ones_like(SMALL_X), SMALL_X, SMALL_X**2])
+    root = np.sqrt(WEIGHTS)
+    params = np.linalg.lstsq(design * root[:, None], Y * root, rcond=None)[0]
+    result = estimate(problem, params)
+    ssr = float(np.sum(WEIGHTS * (Y - design @ params) ** 2))
+    covariance = ssr / 4 * np.linalg.inv(design.T @ (WEIGHTS[:, None] * design))
+    np.testing.assert_allclose(result.covariance, covariance, rtol=1e-8)
+    np.testing.assert_allclose(result.std_errors, np.sqrt(np.diag(covariance)), rtol=1e-8)
+    weighted = design * root[:, None]
+    assert result.condition_number == pytest.approx(np.linalg.cond(weighted / np.linalg.norm(weighted, axis=0)),
+                                                    rel=1e-8)
+
+
+def mixed_rate(x, a, b, c):
+    return (a + c) * x + b * x**2
+
+
+def mixed_rate_jacobian(x, a, b, c):
+    return [x + 0 * a, x**2 + 0 * b, x + 0 * c]
+
+
+def test_three_parameters_with_two_sharing_one_column_give_no_standard_errors():
+    # Columns x, x² and x again: rank 2 of 3 (numpy.linalg.matrix_rank), so no inverse exists
+    # although the two largest singular values are far from zero.
+    design = np.column_stack([X, X**2, X])
+    assert np.linalg.matrix_rank(design) == 2
+    problem = Problem(model=mixed_rate, jacobian=mixed_rate_jacobian, x=X, y=Y, names=("a", "b", "c"))
+    result = estimate(problem, np.array([1.0, 0.1, 1.0]))
+    assert np.all(np.isnan(result.covariance)) and result.condition_number == np.inf
+
+
+def columns_at_angle(angle: float) -> tuple[np.ndarray, np.ndarray]:
+    """Two unit columns over 7 points at ``angle`` radians: u along X, v turned towards a unit w ⟂ u."""
+    u = X / np.linalg.norm(X)
+    w = np.ones_like(X) - (np.ones_like(X) @ u) * u
+    w /= np.linalg.norm(w)
+    return u, np.cos(angle) * u + np.sin(angle) * w
+
+
+@pytest.mark.parametrize("angle, rank", [(1.5e-9, 1), (3e-9, 2)])
+def test_rank_is_lost_at_a_smallest_singular_value_of_1e_9_of_the_largest(angle, rank):
+    # Unit columns at angle θ have singular values √2·cos(θ/2) and √2·sin(θ/2): their ratio
+    # tan(θ/2) is 0.75e-9 or 1.5e-9, either side of RANK_TOLERANCE = 1e-9 of the largest
+    # (numpy.linalg.matrix_rank with that tolerance agrees).
+    u, v = columns_at_angle(angle)
+    design = np.column_stack([u, v])
+    singular = np.linalg.svd(design, compute_uv=False)
+    assert np.linalg.matrix_rank(design, tol=RANK_TOLERANCE * singular[0]) == rank
+    problem = Problem(model=lambda x, a, b: a * u + b * v, jacobian=lambda x, a, b: [u + 0 * a, v + 0 * b],
+                      x=X, y=Y, names=("a", "b"))
+    result = estimate(problem, np.array([1.0, 1.0]))
+    if rank == 1:
+        assert np.all(np.isnan(result.std_errors)) and result.condition_number == np.inf
+    else:
+        # Cov = s²·(DᵀD)⁻¹ = s²·D⁺D⁺ᵀ (numpy.linalg.pinv: DᵀD itself is too ill-conditioned to invert);
+        # the condition number 1/tan(θ/2) is about 6.7e8.
+        pseudo = np.linalg.pinv(design, rcond=1e-15)
+        np.testing.assert_allclose(result.covariance, result.ssr / 5 * pseudo @ pseudo.T, rtol=1e-5)
+        assert result.condition_number == pytest.approx(singular[0] / singular[1], rel=1e-5)
+
+
+def test_an_overflowing_point_gives_no_floating_point_warning():
+    # exp(800·x) overflows at every x > 0: the estimate is all NaN, and quietly so (no
+    # RuntimeWarning reaches the caller; a diverged run is not an error).
+    problem = Problem(model=overflowing, x=X, y=Y, names=("a", "b"))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        result = estimate(problem, np.array([2.0, 800.0]))
+    assert np.all(np.isnan(result.std_errors)) and result.condition_number == np.inf
+
+
+def test_integer_parameters_are_estimated_as_floats():
+    # At (1, 2), not a fit: SSR = Σ w·(y − 1 − 2x)² and Cov = SSR/5·(XᵀWX)⁻¹ (numpy.linalg.inv); the
+    # JSON of integer parameters is the JSON of the same values given as floats, 1.0 not 1.
+    problem, _, design = weighted_line()
+    result = estimate(problem, [1, 2])
+    ssr = float(np.sum(WEIGHTS * (Y - 1 - 2 * X) ** 2))
+    covariance = ssr / 5 * np.linalg.inv(design.T @ (WEIGHTS[:, None] * design))
+    assert result.ssr == pytest.approx(ssr, rel=1e-12)
+    np.testing.assert_allclose(result.std_errors, np.sqrt(np.diag(covariance)), rtol=1e-9)
+    assert json.dumps(result.to_dict()) == json.dumps(estimate(problem, [1.0, 2.0]).to_dict())
