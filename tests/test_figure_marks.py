@@ -9,22 +9,32 @@ Hard cases:
   scipy.stats.t (any regression text, e.g. Draper & Smith, Applied Regression Analysis);
 - polynomials in x with 5 and 7 coefficients: collinearity indices of all 26 and 119 subsets, each
   γ_K = 1/σ_min of the unit-length columns K (Brun, Reichert & Künsch 2001), computed here with
-  numpy.linalg.svd.
+  numpy.linalg.svd;
+- the sweep of tests/twin_optima.py with a's range cut at 1.5: its best optimum a = 2, b = 0
+  (calculus, derived in twin_optima.py) then lies outside the ranges, and every start with
+  a > A_SPLIT reaches it.
 """
 from __future__ import annotations
 
 import itertools
+import re
 
 import numpy as np
 import pytest
+import twin_optima as twin
 from scipy import stats
 
 from audit import Problem
 from audit.figures import identifiability as identifiability_figures
+from audit.figures import sweep_maps
 from audit.figures.style import plt
+from audit.figures.sweep_outside import OUTSIDE_GID, OUTSIDE_LABEL
 from audit.identifiability.analysis import analyse
 from audit.identifiability.profiles import NOT_WALKED
+from audit.inputs.scenario import load_scenario
 from audit.inputs.settings import IdentifiabilitySettings
+from audit.parallel.plan import ParallelPlan
+from audit.sweep.run import SweepRequest, run_sweep
 
 X = np.linspace(0.0, 1.0, 20)
 CONFIDENCE = 0.95
@@ -261,3 +271,84 @@ def test_collinearity_figure_names_the_highest_subsets_it_keeps(monkeypatch, tmp
     for label, end in named:
         assert end == pytest.approx(gamma[label], rel=1e-6), label
     assert f"the {kept} highest of 119" in figure.axes[0].get_title()
+
+
+# ---------------------------------------------------------------- basin maps
+@pytest.fixture(scope="module")
+def cut_twin(tmp_path_factory):
+    """The twin-optima sweep with a searched only up to 1.5: the optimum a = 2 is outside."""
+    folder = tmp_path_factory.mktemp("twin-cut")
+    toml = twin.scenario_toml().replace(f"range = [{twin.A_RANGE[0]}, {twin.A_RANGE[1]}]",
+                                        f"range = [{twin.A_RANGE[0]}, 1.5]")
+    (folder / "scenario.toml").write_text(toml.replace("\n        ", "\n"))
+    (folder / "model.py").write_text(twin.MODEL)
+    (folder / "data.csv").write_text(twin.DATA)
+    scenario = load_scenario(folder)
+    return run_sweep(scenario, SweepRequest.from_scenario(scenario), ParallelPlan(jobs=1), folder / "cache")
+
+
+@pytest.fixture
+def basin_figure(monkeypatch, cut_twin, tmp_path):
+    figures = captured(monkeypatch, sweep_maps)
+    sweep_maps.basin_figure(cut_twin, cut_twin.maps[0], 0, tmp_path, "basins", ("png",))
+    return figures["basins"]
+
+
+def legend_entry(figure, prefix: str):
+    """(drawn legend handle, label) of the figure legend's entry starting with ``prefix``."""
+    legend = figure.legends[0]
+    found = [(handle, text.get_text()) for handle, text in zip(legend.legend_handles, legend.get_texts())
+             if text.get_text().startswith(prefix)]
+    assert len(found) == 1, [text.get_text() for text in legend.get_texts()]
+    return found[0]
+
+
+def test_safe_region_legend_entry_is_the_outline_the_map_draws(basin_figure):
+    outlines = [patch for axis in basin_figure.axes for patch in axis.patches
+                if patch.get_gid() == sweep_maps.REGION_GID]
+    assert outlines, "the twin sweep has a safe region at some step factor"
+    handle, _ = legend_entry(basin_figure, "safe starting region")
+    for outline in outlines:
+        assert outline.get_fill() is False and handle.get_fill() is False       # unfilled, both
+        assert handle.get_facecolor()[3] == outline.get_facecolor()[3] == 0.0
+        assert handle.get_edgecolor() == outline.get_edgecolor()
+        assert handle.get_linewidth() == outline.get_linewidth()
+        # Patch.update_from (how the legend copies a handle) copies the dash pattern, which is
+        # what is drawn; the pattern in points, scaled by the line width, must be the same.
+        assert handle._dash_pattern == outline._dash_pattern and outline._dash_pattern[1] is not None
+        effects = [(type(effect).__name__, vars(effect).get("_gc")) for effect in outline.get_path_effects()]
+        assert [(type(effect).__name__, vars(effect).get("_gc")) for effect in handle.get_path_effects()] == effects
+
+
+def test_solution_outside_the_ranges_is_marked_at_the_map_edge(cut_twin, basin_figure):
+    # Calculus (twin_optima.py): the minimum at a = 2, b = 0 lies past the cut range end a = 1.5.
+    row = int(np.argmin(np.abs(cut_twin.solution_params[:, 0] - 2.0)))
+    np.testing.assert_allclose(cut_twin.solution_params[row], [2.0, 0.0], atol=1e-7)
+    assert not cut_twin.solution_inside[row] and cut_twin.solution_inside[0]
+    for axis in basin_figure.axes:
+        marks = [artist for artist in by_gid(axis, OUTSIDE_GID) if hasattr(artist, "get_offsets")]
+        numbers = [artist for artist in by_gid(axis, OUTSIDE_GID) if hasattr(artist, "get_text")]
+        # Every start with a > A_SPLIT reaches it at every step factor (twin_optima.py).
+        assert len(marks) == 1 and len(numbers) == 1
+        x, y = marks[0].get_offsets()[0]
+        assert x == pytest.approx(axis.get_xlim()[1]) and y == pytest.approx(0.0, abs=1e-7)
+        assert marks[0].get_facecolor().size == 0 or marks[0].get_facecolor()[0][3] == 0.0     # hollow
+        assert numbers[0].get_text() == str(row + 1)
+    _, label = legend_entry(basin_figure, f"solution {row + 1} ")
+    assert re.search(r"outside the ranges\)$", label)
+    legend_entry(basin_figure, OUTSIDE_LABEL)
+    # The best fit (inside the ranges) is not marked as outside.
+    _, best = legend_entry(basin_figure, "reached the best")
+    assert "outside" not in best
+
+
+# ---------------------------------------------------------------- legends stay on the page
+@pytest.mark.parametrize("which", ["profiles", "basins"])
+def test_legend_lies_within_its_figure(which, profile_figure, basin_figure):
+    # The profile legend of the line case has seven entries, the basin legend long solution
+    # names; matplotlib's own extents (after drawing) must keep them inside the figure.
+    figure = profile_figure if which == "profiles" else basin_figure
+    figure.canvas.draw()
+    legend = figure.legends[0].get_window_extent()
+    page = figure.bbox
+    assert page.x0 <= legend.x0 and legend.x1 <= page.x1, (legend, page)
