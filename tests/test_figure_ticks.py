@@ -79,12 +79,13 @@ def test_the_check_finds_tick_labels_that_do_overlap():
     style.plt.close(figure)
 
 
-def test_bootstrap_tick_labels_of_many_digits_do_not_overlap(monkeypatch, tmp_path):
-    # A straight line whose intercept (584.6567) is known to 1e-4 and slope (292.3) to 2e-4:
-    # every tick label needs eight or nine digits. Matplotlib's own locator counts ticks by the
-    # axis length alone and put 584.656625, 584.656650, ... side by side, overlapping.
+@pytest.mark.parametrize("level", [584.6567, -12345.678])
+def test_bootstrap_tick_labels_of_many_digits_do_not_overlap(level, monkeypatch, tmp_path):
+    # A straight line whose intercept (584.6567, or −12345.678 with its sign) is known to about
+    # 1e-4: every tick label needs eight to eleven characters. Matplotlib's own locator counts ticks
+    # by the axis length alone and put 584.656625, 584.656650, ... side by side, overlapping.
     x = np.linspace(0.0, 1.0, 30)
-    y = 584.6567 * (1 + 0.5 * x) + 1e-4 * np.random.default_rng(1).standard_normal(x.size)
+    y = level * (1 + 0.5 * x) + 1e-4 * np.random.default_rng(1).standard_normal(x.size)
     best = np.linalg.lstsq(np.column_stack([np.ones_like(x), x]), y, rcond=None)[0]
     result = run_bootstrap(Problem(lambda x, a, b: a + b * x, x, y, ("intercept", "slope")), best, samples=300,
                            seed=2)
