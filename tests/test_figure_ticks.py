@@ -1,14 +1,19 @@
 """Every figure the audit draws, checked for tick labels that overlap, with matplotlib's own text
-extents (Text.get_window_extent after the canvas is drawn), at the size the figure is saved."""
+extents (Text.get_window_extent after the canvas is drawn), at the size the figure is saved (the
+appendix scales a figure as a whole, so labels that do not overlap there do not in print)."""
 from __future__ import annotations
 
 import importlib
 import itertools
 
+import numpy as np
 import pytest
 
+from audit import Problem
 from audit.cli import main
+from audit.figures import bootstrap as bootstrap_figures
 from audit.figures import style
+from audit.uncertainty.bootstrap import run_bootstrap
 from conftest import PROJECT_ROOT
 
 WRITERS = ("bootstrap", "derivatives", "fit", "identifiability", "residuals", "sweep", "sweep_maps")
@@ -72,3 +77,25 @@ def test_the_check_finds_tick_labels_that_do_overlap():
     axes.set_xticks(range(12), [f"label{k:04d}" for k in range(12)], rotation=90, fontsize=5)
     assert overlapping_tick_labels(figure) == []
     style.plt.close(figure)
+
+
+@pytest.mark.parametrize("level", [584.6567, -12345.678])
+def test_bootstrap_tick_labels_of_many_digits_do_not_overlap(level, monkeypatch, tmp_path):
+    # A straight line whose intercept (584.6567, or −12345.678 with its sign) is known to about
+    # 1e-4: every tick label needs eight to eleven characters. Matplotlib's own locator counts ticks
+    # by the axis length alone and put 584.656625, 584.656650, ... side by side, overlapping.
+    x = np.linspace(0.0, 1.0, 30)
+    y = level * (1 + 0.5 * x) + 1e-4 * np.random.default_rng(1).standard_normal(x.size)
+    best = np.linalg.lstsq(np.column_stack([np.ones_like(x), x]), y, rcond=None)[0]
+    result = run_bootstrap(Problem(lambda x, a, b: a + b * x, x, y, ("intercept", "slope")), best, samples=300,
+                           seed=2)
+    checked = {}
+
+    def checking_save(figure, folder, stem, formats=("png",)):
+        checked[stem] = overlapping_tick_labels(figure)
+        style.plt.close(figure)
+        return []
+
+    monkeypatch.setattr(bootstrap_figures, "save", checking_save)
+    bootstrap_figures.write_figures(result, tmp_path)
+    assert checked == {"bootstrap-histograms": [], "bootstrap-pairs": []}

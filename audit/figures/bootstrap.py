@@ -18,7 +18,7 @@ from scipy import stats
 
 from ..uncertainty.bootstrap import BootstrapResult
 from .drawn_once import drawn_once
-from .style import ASYMPTOTIC, EMPIRICAL, plt, save
+from .style import ASYMPTOTIC, EMPIRICAL, cap_ticks, plt, save
 
 #: Pairs plots show at most this many parameters (the first ones), so panels stay readable.
 MAX_PAIR_PARAMETERS = 6
@@ -27,6 +27,11 @@ MAX_SCATTER_POINTS = 4000
 PANEL_SIZE = 3.2
 #: A single pair panel is widened to this many inches so that its title and legend fit.
 MIN_PAIRS_WIDTH = 4.6
+#: Share of a panel's width its x axis keeps once the layout has placed the labels (a histogram
+#: has no y tick labels; a pair panel has them); the tick labels must fit along it.
+HISTOGRAM_AXIS_SHARE, PAIR_AXIS_SHARE = 0.85, 0.7
+#: Angle of the pair panels' x tick labels (degrees).
+PAIR_LABEL_ROTATION = 30
 ESTIMATE_COLOUR = "#000000"
 #: Replicate density from white to the bootstrap colour: lightness alone carries it, so it
 #: survives greyscale printing.
@@ -67,6 +72,7 @@ def _histograms(result: BootstrapResult, used: np.ndarray, folder: Path, formats
         flagged.setdefault(flag.parameter, []).append(flag.kind)
     for j, name in enumerate(result.names):
         _histogram_panel(axes.flat[j], result, used[:, j], j, flagged.get(name, []))
+        cap_ticks(axes.flat[j].xaxis, HISTOGRAM_AXIS_SHARE * PANEL_SIZE * 1.25)
     for spare in axes.flat[n:]:
         spare.set_visible(False)
     handles = [
@@ -125,6 +131,7 @@ def _pairs(result: BootstrapResult, used: np.ndarray, folder: Path, formats: tup
                 ax.set_visible(False)
                 continue
             _pair_panel(ax, result, used, column, row + 1)
+            cap_ticks(ax.xaxis, PAIR_AXIS_SHARE * PANEL_SIZE, size="x-small", rotation=PAIR_LABEL_ROTATION)
             if row == size - 1:
                 ax.set_xlabel(result.names[column])
             if column == 0:
@@ -161,5 +168,4 @@ def _pair_panel(ax, result: BootstrapResult, used: np.ndarray, first: int, secon
     ax.plot(*centre, marker="+", color=ESTIMATE_COLOUR, markersize=10, markeredgewidth=1.5, ls="")
     ax.ticklabel_format(useOffset=False)
     ax.tick_params(labelsize="x-small")
-    for label in ax.get_xticklabels():
-        label.set_rotation(30)
+    ax.tick_params(axis="x", labelrotation=PAIR_LABEL_ROTATION)

@@ -2,10 +2,14 @@
 
 * ``profiles``: each parameter's profile SSR against its walked values, the threshold line, the
   asymptotic interval (dashed) and the profile interval (solid bar between the refined ends,
-  each marked where its refit met the threshold; an arrow to the walk's last point where open);
+  each marked where its refit met the threshold; an arrow to the walk's last point where open).
+  The threshold is drawn over the bar; refits that failed are ticks on the bottom edge (they
+  have no SSR to plot); an asymptotic end beyond the walked range is a triangle at that edge
+  with its value written;
 * ``correlation``: the correlation matrix as an annotated heat map;
 * ``weak_directions``: the loadings of the weakest directions as bars (negative hatched);
-* ``collinearity``: collinearity index of every subset against its size, with the limit.
+* ``collinearity``: the collinearity index of each subset as a bar named by its subset, the
+  highest first, with the limit.
 """
 from __future__ import annotations
 
@@ -14,17 +18,20 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib.colors import LinearSegmentedColormap
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 from ..identifiability.analysis import Identifiability
 from ..identifiability.profiles import NOT_WALKED
 from .drawn_once import drawn_once
-from .style import ASYMPTOTIC, EMPIRICAL, plt, save
+from .style import ASYMPTOTIC, EMPIRICAL, legend_columns, plt, save
 
 #: Negative → zero → positive, dark to light to dark so that the sign also shows in the cell text.
 CORRELATION_MAP = LinearSegmentedColormap.from_list("fitaudit_correlation", ["#1b3a5c", "#f4f4f4", "#b5651d"])
 THRESHOLD = "#b5651d"
 POSITIVE, NEGATIVE = "#1b3a5c", "#e6aa68"
+COLLINEAR_HATCH = "//"
 #: The profile panels show SSR up to this many times the threshold's rise above SSR_min.
 PROFILE_HEADROOM = 6.0
 #: A log-scale parameter's profile is drawn on a log axis when its walked part spans at least
@@ -32,6 +39,20 @@ PROFILE_HEADROOM = 6.0
 LOG_AXIS_SPAN = 10.0
 #: Weak directions drawn at most.
 DIRECTIONS_SHOWN = 3
+#: Drawing order in a profile panel: the interval bar and an open side's arrow, then the
+#: threshold over them (drawn under the bar, it vanished along the whole interval), then the
+#: refined ends.
+BAR_ORDER, THRESHOLD_ORDER, END_ORDER = 2.0, 2.5, 3.0
+#: Heights (axes fraction) of the marks that are not SSR values: failed refits on the bottom
+#: edge itself, asymptotic ends beyond the axis in the margin the y limits keep free below the
+#: lowest SSR (0.15 / 1.15 of the height).
+FAILED_HEIGHT, BEYOND_HEIGHT = 0.0, 0.06
+FAILED_LABEL = "refit failed (no value)"
+BEYOND_LABEL = "off-axis asymptotic end (value)"
+#: Artist ids (``Artist.get_gid``) of the profile panel's marks, for tests that find them.
+BAR_GID, THRESHOLD_GID, FAILED_GID, BEYOND_GID = "profile-interval", "threshold", "refit-failed", "asymptotic-beyond"
+#: Subsets drawn at most in the collinearity figure: the highest indices (the title says so).
+SUBSETS_SHOWN = 30
 
 
 @drawn_once()
@@ -60,25 +81,27 @@ def _profiles(result: Identifiability, folder: Path, formats: tuple[str, ...]) -
     profiles, estimates = result.profiles, result.estimates
     rise = profiles.threshold - profiles.ssr_min
     figure, axes = _panels(len(result.names))
+    any_beyond = False
     for j, (name, axis) in enumerate(zip(result.names, axes)):
         values, ssr = profiles.values[j], profiles.ssr[j]
         axis.plot(values, ssr, color=EMPIRICAL, marker="o", markersize=2.5, linewidth=1.2, label="profile SSR")
         failed = ~np.isfinite(ssr) & (profiles.outcome[j] != NOT_WALKED)
         if failed.any():
-            axis.plot(values[failed], np.full(failed.sum(), profiles.ssr_min), linestyle="none", marker="x",
-                      color=THRESHOLD, label="refit failed")
-        axis.axhline(profiles.threshold, color=THRESHOLD, linestyle=":", linewidth=1.2,
-                     label=f"{profiles.confidence:.0%} threshold")
-        for bound in (estimates.lower[j], estimates.upper[j]):
-            if np.isfinite(bound):
-                axis.axvline(bound, color=ASYMPTOTIC, linestyle="--", linewidth=1.0)
+            # A failed refit has no SSR: its mark sits on the bottom edge (y in axes fraction),
+            # where it cannot be read as a value on the SSR scale.
+            axis.plot(values[failed], np.full(failed.sum(), FAILED_HEIGHT), transform=axis.get_xaxis_transform(),
+                      linestyle="none", marker="x", markersize=5, markeredgewidth=1.2, color=THRESHOLD,
+                      clip_on=False, label=FAILED_LABEL, gid=FAILED_GID)
+        axis.axhline(profiles.threshold, color=THRESHOLD, linestyle=":", linewidth=1.4, zorder=THRESHOLD_ORDER,
+                     label=f"{profiles.confidence:.0%} threshold", gid=THRESHOLD_GID)
         axis.axvline(result.params[j], color=ASYMPTOTIC, linewidth=0.6, alpha=0.6)
-        _profile_interval(axis, profiles, j, walked_values(profiles, j))
+        walked = walked_values(profiles, j)
+        _profile_interval(axis, profiles, j, walked)
         top = profiles.ssr_min + PROFILE_HEADROOM * rise if rise > 0 else np.nanmax(ssr)
         bottom = min(profiles.ssr_min, np.nanmin(ssr)) - 0.15 * (top - profiles.ssr_min)
         if np.isfinite(top) and top > bottom:
             axis.set_ylim(bottom, top)
-        walked = walked_values(profiles, j)
+        walked = walked[np.isfinite(walked)]
         if walked.max() > walked.min():
             axis.set_xlim(walked.min(), walked.max())
         axis.set_title(name, fontsize=10, loc="right")
@@ -89,14 +112,56 @@ def _profiles(result: Identifiability, folder: Path, formats: tuple[str, ...]) -
             axis.xaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
             axis.xaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
             axis.xaxis.set_minor_formatter(NullFormatter())
-    axes[0].plot([], [], color=ASYMPTOTIC, linestyle="--", label="asymptotic interval")
-    axes[0].plot([], [], color=EMPIRICAL, linewidth=4, solid_capstyle="butt", label="profile interval")
-    axes[0].plot([], [], linestyle="none", marker="|", markersize=12, markeredgewidth=2, color=THRESHOLD,
-                 label="refined end")
-    figure.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncol=6, fontsize=8,
-                  frameon=False)
+        any_beyond |= asymptotic_ends(axis, estimates.lower[j], estimates.upper[j])
+    handles = _profile_legend(axes[:len(result.names)], any_beyond)
+    columns = legend_columns([handle.get_label() for handle in handles], figure.get_figwidth())
+    figure.legend(handles=handles, loc="outside lower center", ncol=columns, fontsize=8, frameon=False)
     figure.suptitle("Profile likelihood: SSR with each parameter fixed, the others refitted", fontsize=11)
     return save(figure, folder, "identifiability-profiles", formats)
+
+
+def _profile_legend(axes, any_beyond: bool) -> list:
+    """One handle per thing drawn in any panel (a failed refit may show in one panel only), then
+    the interval marks."""
+    drawn = {}
+    for axis in axes:
+        for handle, label in zip(*axis.get_legend_handles_labels()):
+            drawn.setdefault(label, handle)
+    handles = list(drawn.values())
+    handles += [Line2D([], [], color=ASYMPTOTIC, linestyle="--", label="asymptotic interval"),
+                Line2D([], [], color=EMPIRICAL, linewidth=4, solid_capstyle="butt", label="profile interval"),
+                Line2D([], [], linestyle="none", marker="|", markersize=12, markeredgewidth=2, color=THRESHOLD,
+                       label="refined end")]
+    if any_beyond:
+        handles.append(Line2D([], [], linestyle="none", marker=">", markersize=6, color=ASYMPTOTIC,
+                              label=BEYOND_LABEL))
+    return handles
+
+
+def asymptotic_ends(axis, lower: float, upper: float) -> bool:
+    """Each finite asymptotic interval end as a dashed line where it falls inside the x limits;
+    beyond them (at or below zero on a log axis too) as a triangle on that edge, pointing out,
+    with the end's value written beside it. Call once the limits and scale are final.
+
+    Returns:
+        True when an end was beyond the axis.
+    """
+    left, right = axis.get_xlim()   # positive on a log axis, so an end at or below zero is beyond
+    beyond = False
+    for end in (lower, upper):
+        if not np.isfinite(end):
+            continue
+        if left <= end <= right:
+            axis.axvline(end, color=ASYMPTOTIC, linestyle="--", linewidth=1.0)
+            continue
+        beyond = True
+        edge, outward, text_side = (0.0, "<", "left") if end < left else (1.0, ">", "right")
+        axis.plot([edge], [BEYOND_HEIGHT], transform=axis.transAxes, linestyle="none", marker=outward, markersize=6,
+                  color=ASYMPTOTIC, clip_on=False, gid=BEYOND_GID)
+        axis.annotate(f"{end:.3g}", (edge, BEYOND_HEIGHT), xycoords="axes fraction",
+                      xytext=(6 if text_side == "left" else -6, 0), textcoords="offset points", ha=text_side,
+                      va="center", fontsize=7, color=ASYMPTOTIC, gid=BEYOND_GID)
+    return beyond
 
 
 def walked_values(profiles, j: int) -> np.ndarray:
@@ -115,14 +180,15 @@ def _profile_interval(axis, profiles, j: int, values: np.ndarray) -> None:
         if status == "closed":
             ends.append(end)
             axis.plot(end, profiles.end_ssr[j, side], linestyle="none", marker="|", markersize=12,
-                      markeredgewidth=2, color=THRESHOLD)
+                      markeredgewidth=2, color=THRESHOLD, zorder=END_ORDER)
             continue
         ends.append(edge)
-        axis.annotate("", xy=(edge, level), xytext=(profiles.estimate[j], level),
+        axis.annotate("", xy=(edge, level), xytext=(profiles.estimate[j], level), zorder=BAR_ORDER,
                       arrowprops=dict(arrowstyle="->", color=EMPIRICAL, linewidth=1.6))
         axis.annotate("open", (edge, level), xytext=(4 if text_side == "left" else -4, 5), textcoords="offset points",
                       ha=text_side, va="bottom", fontsize=8, color=EMPIRICAL)
-    axis.plot(ends, [level, level], color=EMPIRICAL, linewidth=4, solid_capstyle="butt", alpha=0.85)
+    axis.plot(ends, [level, level], color=EMPIRICAL, linewidth=4, solid_capstyle="butt", alpha=0.85, zorder=BAR_ORDER,
+              gid=BAR_GID)
 
 
 def _correlation(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
@@ -172,35 +238,38 @@ def _weak_directions(result: Identifiability, folder: Path, formats: tuple[str, 
 
 
 def _collinearity(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
+    """One bar per subset, named on its row, from 1 to its index γ on a log axis, the highest at
+    the top (at most ``SUBSETS_SHOWN`` of them); exactly dependent subsets (γ = ∞) reach past the
+    others and are written "∞"."""
     collinearity = result.collinearity
-    figure, axis = plt.subplots(figsize=(6.4, 4.0), constrained_layout=True)
-    index = np.where(np.isfinite(collinearity.index), collinearity.index, np.nan)
-    shown = np.nan_to_num(index, nan=np.nanmax(index[np.isfinite(index)], initial=collinearity.limit) * 10)
-    above = shown >= collinearity.limit
-    # Spread each size's subsets evenly across a narrow band so that equal indices stay visible.
-    jitter = np.zeros(len(shown))
-    for size in np.unique(collinearity.size):
-        group = np.flatnonzero(collinearity.size == size)
-        if len(group) > 1:
-            jitter[group] = (np.arange(len(group)) / (len(group) - 1) - 0.5) * 0.3
-    for mask, colour, marker, label in ((~above, EMPIRICAL, "o", "identifiable"),
-                                        (above, THRESHOLD, "^", "not identifiable")):
-        if mask.any():
-            axis.scatter(collinearity.size[mask] + jitter[mask], shown[mask], s=18, color=colour, marker=marker,
-                         label=label, alpha=0.8)
-    axis.axhline(collinearity.limit, color="black", linestyle=":", label=f"limit {collinearity.limit:g}")
-    axis.set_yscale("log")
-    axis.set_ylim(bottom=0.9, top=max(np.max(shown), collinearity.limit) * 6)
-    axis.yaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
-    axis.yaxis.set_minor_formatter(NullFormatter())
-    axis.set_xticks(range(2, collinearity.max_size + 1))
-    axis.set_xlim(1.5, collinearity.max_size + 0.5)
-    axis.set_xlabel("subset size")
-    axis.set_ylabel("collinearity index γ")
-    worst = int(np.argmax(shown))
-    axis.annotate("{" + ", ".join(collinearity.subset_names(worst)) + "}",
-                  (collinearity.size[worst] + jitter[worst], shown[worst]), textcoords="offset points",
-                  xytext=(0, 7), ha="center", fontsize=8)
-    axis.legend(fontsize=8, frameon=False)
-    axis.set_title("Collinearity index of every parameter subset", fontsize=11)
+    index = collinearity.index
+    finite = np.isfinite(index)
+    reach = max(np.max(index[finite], initial=collinearity.limit), collinearity.limit) * 10
+    length = np.where(finite, index, reach)
+    rows = np.argsort(-length, kind="stable")[:SUBSETS_SHOWN]
+    above = length[rows] >= collinearity.limit
+    figure, axis = plt.subplots(figsize=(6.4, max(2.4, 1.6 + 0.22 * len(rows))), constrained_layout=True)
+    positions = np.arange(len(rows))
+    axis.barh(positions, length[rows] - 1.0, left=1.0, height=0.7, color=np.where(above, THRESHOLD, EMPIRICAL),
+              hatch=[COLLINEAR_HATCH if flag else "" for flag in above], edgecolor="black", linewidth=0.5)
+    axis.set_yticks(positions, ["{" + ", ".join(collinearity.subset_names(row)) + "}" for row in rows], fontsize=8)
+    for position, row in zip(positions, rows):
+        axis.annotate(f"{index[row]:.3g}" if finite[row] else "∞", (length[row], position), xytext=(3, 0),
+                      textcoords="offset points", va="center", fontsize=7)
+    axis.axvline(collinearity.limit, color="black", linestyle=":", linewidth=1.2)
+    # Two rows at least, so that a single subset's bar is not a block filling the panel.
+    axis.set_ylim(max(len(rows), 2) - 0.5, -0.5)
+    axis.set_xscale("log")
+    axis.set_xlim(0.9, np.max(length) * 4)
+    axis.xaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
+    axis.xaxis.set_minor_formatter(NullFormatter())
+    axis.set_xlabel("collinearity index γ")
+    handles = [Patch(facecolor=EMPIRICAL, edgecolor="black", linewidth=0.5, label="identifiable"),
+               Patch(facecolor=THRESHOLD, hatch=COLLINEAR_HATCH, edgecolor="black", linewidth=0.5,
+                     label="not identifiable"),
+               Line2D([], [], color="black", linestyle=":", linewidth=1.2, label=f"limit {collinearity.limit:g}")]
+    figure.legend(handles=handles, loc="outside lower center", ncol=3, fontsize=8, frameon=False)
+    which = ("every parameter subset" if len(rows) == len(index)
+             else f"the {len(rows)} highest of {len(index)} parameter subsets")
+    axis.set_title(f"Collinearity index of {which}", fontsize=11)
     return save(figure, folder, "identifiability-collinearity", formats)

@@ -1,17 +1,22 @@
 """Shared look of fitaudit's figures: one colour, marker and hatch per outcome, greyscale-safe.
 
 The outcome colours run from dark to light in a fixed order, and each also has its own hatch,
-so a basin map or bar chart still reads when printed in black and white.
+so a basin map or bar chart still reads when printed in black and white. ``legend_columns`` and
+``cap_ticks`` keep legends and tick labels from running off a figure or into each other,
+estimated from their text, without drawing.
 """
 from __future__ import annotations
 
+import itertools
+import math
 from pathlib import Path
 
 import matplotlib
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402  (the backend must be chosen first)
-from matplotlib.ticker import NullLocator  # noqa: E402
+from matplotlib.font_manager import FontProperties  # noqa: E402
+from matplotlib.ticker import MaxNLocator, NullLocator  # noqa: E402
 
 #: Kinds of end a run can have once converged runs are split by solution.
 #: label -> (fill colour, hatch, legend text). Ordered dark to light.
@@ -47,6 +52,13 @@ ASYMPTOTIC = "#555555"
 EMPIRICAL = "#1b3a5c"
 
 DPI = 150
+#: Widths of a tick label's characters in em, taken generously (DejaVu Sans digits are 0.64 em),
+#: and the gap kept between neighbouring labels, in em.
+CHARACTER_EM, LABEL_GAP_EM = 0.66, 1.0
+#: Tick counts tried by ``cap_ticks``, most first (MaxNLocator's nbins), and the tick steps it
+#: allows (matplotlib's default AutoLocator steps: 1, 2, 2.5 or 5 times a power of ten).
+TICK_BINS = (6, 5, 4, 3, 2, 1)
+TICK_STEPS = (1, 2, 2.5, 5, 10)
 
 
 def plain_text(text: object) -> str:
@@ -69,6 +81,48 @@ def decade_ticks(axes, which: str) -> None:
     else:
         axes.set_yscale("log")
         axes.yaxis.set_minor_locator(NullLocator())
+
+
+def legend_columns(labels: list[str], width: float, fontsize: float = 8.0) -> int:
+    """The most columns a figure legend of ``labels`` can have within ``width`` inches at
+    ``fontsize`` points, estimated without drawing (matplotlib's default handle, padding and column
+    spacing, 0.55 em per character), at least 1.
+
+    Matplotlib fills a legend column by column, the first ``len % columns`` columns one entry
+    longer (``Legend._init_legend_box``), so each column is as wide as its longest entry.
+    """
+    spacing = 2.0 + 0.8 + 2.0   # handle length, handle-text pad, column spacing (em)
+    for columns in range(len(labels), 1, -1):
+        rows, longer = divmod(len(labels), columns)
+        sizes = [rows + 1] * longer + [rows] * (columns - longer)
+        starts = [0, *itertools.accumulate(sizes)]
+        longest = [max(len(label) for label in labels[start:start + size]) for start, size in zip(starts, sizes)]
+        if sum(spacing + 0.55 * characters for characters in longest) * fontsize / 72 <= 0.95 * width:
+            return columns
+    return 1
+
+
+def cap_ticks(axis, length: float, *, size=None, rotation: float = 0.0) -> None:
+    """Give ``axis`` (an XAxis) a MaxNLocator with the most ticks whose labels fit side by side
+    along ``length`` inches, estimated from the labels' text without drawing.
+
+    Long labels (many significant digits, e.g. 584.656625 where the spread is 1e-4) overlap under
+    matplotlib's own locator, which counts ticks by the axis length only. Call once the view
+    limits are final. ``size``: the labels' font size (default rcParams' xtick.labelsize);
+    ``rotation``: their angle in degrees (a label then spans w·cos θ + h·sin θ along the axis).
+    """
+    points = FontProperties(size=size if size is not None else plt.rcParams["xtick.labelsize"]).get_size_in_points()
+    low, high = sorted(axis.get_view_interval())
+    angle = math.radians(rotation)
+    for bins in TICK_BINS:
+        locator = MaxNLocator(nbins=bins, steps=TICK_STEPS)
+        ticks = [tick for tick in locator.tick_values(low, high) if low <= tick <= high]
+        labels = axis.get_major_formatter().format_ticks(ticks)
+        widest = max((len(label) for label in labels), default=0) * CHARACTER_EM
+        span = widest * math.cos(angle) + 1.2 * math.sin(angle) + LABEL_GAP_EM
+        if len(ticks) * span * points / 72 <= length:
+            break
+    axis.set_major_locator(locator)
 
 
 def new_figure(width: float = 6.4, height: float = 4.4):

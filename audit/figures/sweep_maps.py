@@ -2,7 +2,9 @@
 
 Every map panel is one step factor. Cells are coloured by what the run from that start did
 (the best solution, another solution, or a failure kind), each kind also hatched, so the map
-reads in greyscale. The best fit is a white star, the scenario's own start a white circle.
+reads in greyscale. The best fit is a white star, the scenario's own start a white circle, a
+solution outside the searched ranges a hollow diamond (``sweep_outside``), the safe starting
+region a dashed box, drawn the same in the legend.
 """
 from __future__ import annotations
 
@@ -11,21 +13,29 @@ import textwrap
 from pathlib import Path
 
 import numpy as np
+from matplotlib import patheffects
 from matplotlib.colors import BoundaryNorm, ListedColormap
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 
 from ..sweep.result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
-from .style import OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, decade_ticks, plain_text, plt, save
+from .style import (OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, decade_ticks, legend_columns, plain_text, plt,
+                    save)
+from .sweep_outside import further_rows, mark_outside, outside_handle, outside_note, outside_rows
 
 PANEL_SIZE = 3.1
 #: Other solutions drawn each in their own colour; later ones share one.
 NAMED_SOLUTIONS = 3
 BEST_FIT = dict(marker="*", s=170, facecolor="white", edgecolor="black", linewidth=1.0, zorder=5)
 START = dict(marker="o", s=60, facecolor="white", edgecolor="black", linewidth=1.2, zorder=5)
+#: The safe starting region: black dashes on a white halo, which show on dark and light cells
+#: alike and on the legend's white ground, where the legend draws the same unfilled outline.
+REGION = dict(fill=False, edgecolor="black", linestyle="--", linewidth=1.6, zorder=4,
+              path_effects=[patheffects.Stroke(linewidth=3.6, foreground="white"), patheffects.Normal()])
+#: Artist id of the region's outline (``Artist.get_gid``), for tests that find it.
+REGION_GID = "safe-region"
 #: Cells whose run did not reach the best solution, on iteration maps: hatched white, apart
 #: from every colour of the scale, in greyscale too.
-REGION = dict(fill=False, edgecolor="white", linestyle="--", linewidth=1.6, zorder=4)
 UNREACHED = dict(facecolor="white", hatch="////", edgecolor="#9a9a9a")
 #: Narrow figures (one or two panels) keep room for their heading and legend.
 MIN_WIDTH = 6.0
@@ -43,8 +53,12 @@ def map_classes(result: SweepResult, basin_map: BasinMap, m: int) -> tuple[np.nd
     category = basin_map.category[m]
     hatch = OUTCOME_STYLE["other"][1]
     for s in range(1, NAMED_SOLUTIONS + 1):
-        looks.append((SOLUTION_COLOURS[s], hatch, f"solution {s + 1} (SSR {_ssr(result, s)}{_same_curve(result, s)})"))
-    looks.append((SOLUTION_COLOURS[NAMED_SOLUTIONS + 1], hatch, "further solutions"))
+        outside = outside_note(result, [s])
+        notes = _same_curve(result, s) + (f", {outside}" if outside else "")
+        looks.append((SOLUTION_COLOURS[s], hatch, f"solution {s + 1} (SSR {_ssr(result, s)}{notes})"))
+    further = outside_note(result, further_rows(solution, NAMED_SOLUTIONS))
+    looks.append((SOLUTION_COLOURS[NAMED_SOLUTIONS + 1], hatch,
+                  f"further solutions ({further})" if further else "further solutions"))
     for s in range(1, NAMED_SOLUTIONS + 1):
         classes[solution == s] = s
     classes[(category == OTHER) & ((solution > NAMED_SOLUTIONS) | (solution < 0))] = NAMED_SOLUTIONS + 1
@@ -120,7 +134,7 @@ def mark_region(axes, result: SweepResult, basin_map: BasinMap, m: int, f: int) 
     if not np.all(np.isfinite(low)):
         return False
     x, y = result.names.index(basin_map.x_name), result.names.index(basin_map.y_name)
-    axes.add_patch(Rectangle((low[x], low[y]), high[x] - low[x], high[y] - low[y], **REGION))
+    axes.add_patch(Rectangle((low[x], low[y]), high[x] - low[x], high[y] - low[y], **REGION, gid=REGION_GID))
     return True
 
 
@@ -136,22 +150,27 @@ def basin_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path,
     """One panel per step factor, cells coloured by where the run from them ended."""
     classes, looks = map_classes(result, basin_map, m)
     figure, axes = panel_grid(len(result.step_factors))
-    regions = False
+    regions = outside = False
     for f, factor in enumerate(result.step_factors):
         panel = axes.flat[f]
         draw_classes(panel, basin_map, classes[f], looks)
         regions |= mark_region(panel, result, basin_map, m, f)
         mark_points(panel, result, basin_map)
+        rows = outside_rows(result, np.unique(basin_map.solution[m, f]))
+        mark_outside(panel, result, basin_map, rows, NAMED_SOLUTIONS)
+        outside |= bool(rows)
         panel.set_title(f"step factor {factor:g}\n{basin_map.shares[m, f, BEST]:.0%} of this map reach the best",
                         fontsize=9)
     _labels(axes, basin_map)
     present = sorted(set(np.unique(classes).tolist()))
     handles = [Patch(facecolor=looks[i][0], hatch=looks[i][1], edgecolor="black", linewidth=0.5, label=looks[i][2])
                for i in present] + marker_legend()
+    if outside:
+        handles.append(outside_handle())
     if regions:
-        handles.append(Patch(facecolor=OUTCOME_STYLE["best"][0], edgecolor="white", linestyle="--", linewidth=1.4,
-                             label=f"safe starting region (≥{result.region_level:.0%} reach the best)"))
-    figure.legend(handles=handles, loc="outside lower center", ncol=min(len(handles), 4), fontsize=8, frameon=False)
+        handles.append(Patch(**REGION, label=f"safe starting region (≥{result.region_level:.0%} reach the best)"))
+    columns = min(4, legend_columns([handle.get_label() for handle in handles], figure.get_figwidth()))
+    figure.legend(handles=handles, loc="outside lower center", ncol=columns, fontsize=8, frameon=False)
     figure.suptitle(_heading(result, basin_map, m, "where each start leads"), fontsize=10)
     return save(figure, folder, stem, formats)
 
