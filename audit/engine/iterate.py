@@ -14,7 +14,7 @@ import numpy as np
 from .linsolve import StepSystem
 from .outcomes import Outcome
 from .problem import FLOOR_FRACTION, Problem
-from .trust_region import INITIAL_RADIUS_FACTOR, Spectrum
+from .trust_region import INITIAL_RADIUS_FACTOR, TrustRegion
 
 #: A parameter past this multiple of its typical magnitude (plus its start) has run away.
 DIVERGENCE_FACTOR = 1e8
@@ -231,11 +231,11 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     longer show); or when its Jacobian has lost rank and its steps have died out.
     """
     state.norm_memory = np.maximum(state.norm_memory, system.column_norms)
-    spectrum = Spectrum.of(system)
+    region = TrustRegion(system)
     fresh = np.isnan(state.radius)
     size = np.linalg.norm(state.norm_memory[fresh] * state.params[fresh][:, free], axis=1)
     state.radius[fresh] = INITIAL_RADIUS_FACTOR * np.where(size > 0, size, 1.0)
-    full_step = _scaled_change(state.alpha[:, None] * spectrum.step(np.zeros(len(state))),
+    full_step = _scaled_change(state.alpha[:, None] * region.full_step(),
                                state.params[:, free], state.floor[:, free])
     full_change = np.max(np.abs(full_step), axis=1)
     stationary = full_change < tol
@@ -250,15 +250,14 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         rows = np.flatnonzero(pending)
         if not len(rows):
             break
-        subspectrum = spectrum.restricted(pending)
         alpha = state.alpha[rows]
-        damping = subspectrum.damping_for(state.radius[rows])
-        move = alpha[:, None] * subspectrum.step(damping)
+        damped = region.damped(rows, state.radius[rows])
+        move = alpha[:, None] * damped.steps
         trial = state.params[rows].copy()
         trial[:, free] += move
         change[rows] = np.max(np.abs(_scaled_change(move, trial[:, free], state.floor[rows][:, free])), axis=1)
         trial_weighted, trial_ssr = residual(trial, rows)
-        predicted = subspectrum.predicted_reduction(damping, alpha)
+        predicted = damped.predicted_reduction(alpha)
         gain = (state.ssr[rows] - trial_ssr) / predicted
         gain = np.where(np.isfinite(gain) & np.isfinite(trial).all(axis=1), gain, -np.inf)
         # Below the rounding noise of the SSR the gain ratio is noise too: a step whose
@@ -266,9 +265,9 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         noise = _ssr_noise(state.ssr[rows], state.data_norm[rows])
         unresolved = (predicted <= noise) & (trial_ssr <= state.ssr[rows] + noise)
         accepted = ((gain >= ACCEPTED_GAIN) & (trial_ssr < state.ssr[rows])) | unresolved
-        length = alpha * subspectrum.length(damping)
+        length = alpha * damped.length
         poor = (gain < 0.25) & ~unresolved
-        good = (gain > 0.75) | ((damping == 0) & (gain >= 0.25))
+        good = (gain > 0.75) | ((damped.damping == 0) & (gain >= 0.25))
         state.radius[rows[poor]] = 0.5 * np.minimum(state.radius[rows[poor]], length[poor])
         state.radius[rows[good]] = np.maximum(state.radius[rows[good]], 2 * length[good])
         took = rows[accepted]

@@ -193,31 +193,44 @@ def cholesky_runs_last(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     tiny = np.finfo(float).tiny
     for j in range(width):
         diagonal = matrix[j, j]
-        pivot = diagonal - _sum_over_first(factor[j, :j] * factor[j, :j])
+        pivot = diagonal - sum_over_first(factor[j, :j] * factor[j, :j])
         scale = np.where(diagonal > 0, diagonal, 1.0)
         pivots[j] = pivot / scale
         root = np.sqrt(np.maximum(pivot, tiny * scale))
         factor[j, j] = root
         if j + 1 < width:
-            below = matrix[j + 1 :, j] - _sum_over_first(np.swapaxes(factor[j + 1 :, :j], 0, 1) * factor[j, :j, None])
+            below = matrix[j + 1 :, j] - sum_over_first(np.swapaxes(factor[j + 1 :, :j], 0, 1) * factor[j, :j, None])
             factor[j + 1 :, j] = below / root
     return factor, pivots
 
 
 def cholesky_solve(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     """Solve L·Lᵀ·x = rhs for A systems at once, runs last: factor (c, c, A), rhs (c, A)."""
+    return back_substitution(factor, forward_substitution(factor, rhs))
+
+
+def forward_substitution(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve L·z = rhs for A lower triangular systems, runs last: factor (c, c, A), rhs (c, ..., A)
+    (extra axes between are further right-hand sides)."""
     width = rhs.shape[0]
+    spread = (slice(None),) + (None,) * (rhs.ndim - 2)   # a factor column against every right-hand side
     forward = np.empty_like(rhs)
     for i in range(width):
-        forward[i] = (rhs[i] - _sum_over_first(factor[i, :i] * forward[:i])) / factor[i, i]
+        forward[i] = (rhs[i] - sum_over_first(factor[i, :i][spread] * forward[:i])) / factor[i, i]
+    return forward
+
+
+def back_substitution(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve Lᵀ·x = rhs for A lower triangular factors, runs last: factor (c, c, A), rhs (c, A)."""
+    width = rhs.shape[0]
     solution = np.empty_like(rhs)
     for i in reversed(range(width)):
-        tail = _sum_over_first(factor[i + 1 :, i] * solution[i + 1 :])
-        solution[i] = (forward[i] - tail) / factor[i, i]
+        tail = sum_over_first(factor[i + 1 :, i] * solution[i + 1 :])
+        solution[i] = (rhs[i] - tail) / factor[i, i]
     return solution
 
 
-def _sum_over_first(terms: np.ndarray) -> np.ndarray:
+def sum_over_first(terms: np.ndarray) -> np.ndarray:
     """Sum over the first axis, added in order for every run whatever the batch's size (an
     einsum may pick a different summation order for a different number of runs, and a run's
     result must not depend on its batch)."""
