@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .linsolve import (PIVOT_TOLERANCE, RANK_TOLERANCE, StepSystem, back_substitution, cholesky_runs_last,
+from .linsolve import (PIVOT_TOLERANCE, RANK_TOLERANCE, TINY, StepSystem, back_substitution, cholesky_runs_last,
                        forward_substitution, sum_over_first)
 
 #: The step length may miss the radius by this fraction.
@@ -34,7 +34,6 @@ INITIAL_RADIUS_FACTOR = 1.0
 #: smallest eigenvalue might lie within an eigensolver's rounding (about 1e-15 of the largest) of
 #: the rank tolerance, where the undamped step leaves a direction out.
 CONDITION_LIMIT = 1e14
-TINY = np.finfo(float).tiny
 
 
 @dataclass
