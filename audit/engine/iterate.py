@@ -365,7 +365,6 @@ def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
         oscillating &= not_falling & (state.change > 100 * tol)
     decided = diverged | undefined | settled | oscillating
     if decided.any():
-        codes = np.where(diverged, Outcome.DIVERGED, np.where(
-            undefined, Outcome.MODEL_ERROR, np.where(
-                settled & state.lost_rank, Outcome.SINGULAR, np.where(settled, Outcome.CONVERGED, Outcome.OSCILLATING))))
+        codes = np.select([diverged, undefined, settled & state.lost_rank, settled],
+                          [Outcome.DIVERGED, Outcome.MODEL_ERROR, Outcome.SINGULAR, Outcome.CONVERGED], Outcome.OSCILLATING)
         finish(decided, codes[decided], iteration)
