@@ -14,7 +14,7 @@ import numpy as np
 from .linsolve import StepSystem
 from .outcomes import Outcome
 from .problem import FLOOR_FRACTION, Problem
-from .trust_region import INITIAL_RADIUS_FACTOR, Spectrum
+from .trust_region import INITIAL_RADIUS_FACTOR, TrustRegion
 
 #: A parameter past this multiple of its typical magnitude (plus its start) has run away.
 DIVERGENCE_FACTOR = 1e8
@@ -88,6 +88,8 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
               tol: float, max_iter: int, history: int) -> None:
     """Iterate the runs in ``block`` to their outcomes, writing them into ``result`` (a BatchFit)."""
     free = runs.free
+    # Indexing by a slice when every parameter is fitted gives views instead of copies.
+    columns = slice(None) if len(free) == problem.n_params else free
     shared_y = runs.y if runs.y.ndim == 1 else None
     shared_w = runs.sqrt_weights if runs.sqrt_weights is not None and runs.sqrt_weights.ndim == 1 else None
     shared_x = runs.x if runs.x.ndim == problem.x.ndim else None
@@ -105,8 +107,10 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         x=None if shared_x is not None else np.moveaxis(problem.take_runs(runs.x, block), problem.runs_axis(), 0),
         radius=np.full(len(block), np.nan),
         norm_memory=np.zeros((len(block), len(free))),
-        ssr_before=np.full((len(block), 2), np.inf),
+        ssr_previous=np.full(len(block), np.inf),
+        ssr_two_back=np.full(len(block), np.inf),
         last_move=np.zeros((len(block), len(free))),
+        last_length=np.zeros(len(block)),
         reversals=np.zeros(len(block), dtype=np.int64),
         shrinking=np.zeros(len(block), dtype=bool),
         past_lengths=np.zeros((len(block), OSCILLATION_WINDOW)),
@@ -135,7 +139,8 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
             weighted = weighted * weights
         return weighted, np.einsum("am,am->a", weighted, weighted)
 
-    def finish(mask: np.ndarray, code: Outcome, iteration: int) -> None:
+    def finish(mask: np.ndarray, code: Outcome | np.ndarray, iteration: int) -> None:
+        """Write out the runs in ``mask`` with their outcome (one, or one per run in the mask)."""
         if not mask.any():
             return
         where = state.index[mask]
@@ -172,19 +177,20 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
                 rows = [row * weights for row in rows]
             system = StepSystem.build(rows, state.weighted, state.norm_memory if method == "lm" else None,
                                       held=state.held)
-            overflowed = system.broken & (np.abs(state.params) > state.far).any(axis=1)
-            finish(overflowed, Outcome.DIVERGED, iteration - 1)
-            finish(system.broken[~overflowed], Outcome.MODEL_ERROR, iteration - 1)
-            system = system.restricted(~system.broken)
-            if method == "gn":
+            if system.broken.any():
+                overflowed = system.broken & (np.abs(state.params) > state.far).any(axis=1)
+                finish(overflowed, Outcome.DIVERGED, iteration - 1)
+                finish(system.broken[~overflowed], Outcome.MODEL_ERROR, iteration - 1)
+                system = system.restricted(~system.broken)
+            if method == "gn" and system.rank_deficient.any():
                 finish(system.rank_deficient, Outcome.SINGULAR, iteration - 1)
                 system = system.restricted(~system.rank_deficient)
             if not len(state):
                 return
             if method == "gn":
-                _gauss_newton_step(state, system, free, residual, tol)
+                _gauss_newton_step(state, system, columns, residual, tol, iteration)
             else:
-                _levenberg_marquardt_step(state, system, free, residual, tol)
+                _levenberg_marquardt_step(state, system, columns, residual, tol, iteration)
             remember(iteration)
             _classify(state, finish, iteration, tol)
         finish(np.ones(len(state), dtype=bool), Outcome.STALLED, max_iter)
@@ -204,19 +210,21 @@ def _scaled_change(move: np.ndarray, params: np.ndarray, floor: np.ndarray) -> n
     return move / np.maximum(np.abs(params), floor)
 
 
-def _gauss_newton_step(state: _Working, system: StepSystem, free: np.ndarray, residual, tol: float) -> None:
+def _gauss_newton_step(state: _Working, system: StepSystem, columns: slice | np.ndarray, residual, tol: float,
+                       iteration: int) -> None:
     """a ← a + α·Δ for every working run, whatever it does to the SSR."""
     move = state.alpha[:, None] * system.gauss_newton()
-    state.params[:, free] += move
-    relative = _scaled_change(move, state.params[:, free], state.floor[:, free])
-    state.change = np.max(np.abs(relative), axis=1)
+    state.params[:, columns] += move
+    floor = state.floor[:, columns]
+    state.change = np.max(np.abs(_scaled_change(move, state.params[:, columns], floor)), axis=1)
     state.settled = state.change < tol
-    _track_reversals(state, move / state.floor[:, free])
-    state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
+    _track_reversals(state, move / floor, iteration)
+    state.ssr_two_back, state.ssr_previous = state.ssr_previous, state.ssr
     state.weighted, state.ssr = residual(state.params)
 
 
-def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndarray, residual, tol: float) -> None:
+def _levenberg_marquardt_step(state: _Working, system: StepSystem, columns: slice | np.ndarray, residual, tol: float,
+                              iteration: int) -> None:
     """One trust-region iteration; a rejected trial shrinks the radius and is retried at once.
 
     The radius follows the gain ratio (actual over predicted decrease of the SSR): halved after
@@ -231,12 +239,12 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     longer show); or when its Jacobian has lost rank and its steps have died out.
     """
     state.norm_memory = np.maximum(state.norm_memory, system.column_norms)
-    spectrum = Spectrum.of(system)
+    region = TrustRegion(system)
     fresh = np.isnan(state.radius)
-    size = np.linalg.norm(state.norm_memory[fresh] * state.params[fresh][:, free], axis=1)
+    size = np.linalg.norm(state.norm_memory[fresh] * state.params[fresh][:, columns], axis=1)
     state.radius[fresh] = INITIAL_RADIUS_FACTOR * np.where(size > 0, size, 1.0)
-    full_step = _scaled_change(state.alpha[:, None] * spectrum.step(np.zeros(len(state))),
-                               state.params[:, free], state.floor[:, free])
+    floor = state.floor[:, columns]
+    full_step = _scaled_change(state.alpha[:, None] * region.full_step(), state.params[:, columns], floor)
     full_change = np.max(np.abs(full_step), axis=1)
     stationary = full_change < tol
     count = len(state)
@@ -244,21 +252,22 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     moved = np.zeros(count, dtype=bool)
     at_noise_floor = np.zeros(count, dtype=bool)
     change = np.full(count, np.inf)
-    moves = np.zeros((count, len(free)))
-    params, weighted, ssr = state.params.copy(), state.weighted.copy(), state.ssr.copy()
+    moves = np.zeros((count, system.gradient.shape[1]))
+    # Accepted trials are written into the state at once: a run leaves the pending ones when it
+    # moves, so nothing reads its old values afterwards; only the SSR before the step is kept.
+    ssr_before = state.ssr.copy()
     for _ in range(TRIAL_STEPS):
         rows = np.flatnonzero(pending)
         if not len(rows):
             break
-        subspectrum = spectrum.restricted(pending)
         alpha = state.alpha[rows]
-        damping = subspectrum.damping_for(state.radius[rows])
-        move = alpha[:, None] * subspectrum.step(damping)
-        trial = state.params[rows].copy()
-        trial[:, free] += move
-        change[rows] = np.max(np.abs(_scaled_change(move, trial[:, free], state.floor[rows][:, free])), axis=1)
+        damped = region.damped(rows, state.radius[rows])
+        move = alpha[:, None] * damped.steps
+        trial = state.params[rows]
+        trial[:, columns] += move
+        change[rows] = np.max(np.abs(_scaled_change(move, trial[:, columns], floor[rows])), axis=1)
         trial_weighted, trial_ssr = residual(trial, rows)
-        predicted = subspectrum.predicted_reduction(damping, alpha)
+        predicted = damped.predicted_reduction(alpha)
         gain = (state.ssr[rows] - trial_ssr) / predicted
         gain = np.where(np.isfinite(gain) & np.isfinite(trial).all(axis=1), gain, -np.inf)
         # Below the rounding noise of the SSR the gain ratio is noise too: a step whose
@@ -266,13 +275,14 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         noise = _ssr_noise(state.ssr[rows], state.data_norm[rows])
         unresolved = (predicted <= noise) & (trial_ssr <= state.ssr[rows] + noise)
         accepted = ((gain >= ACCEPTED_GAIN) & (trial_ssr < state.ssr[rows])) | unresolved
-        length = alpha * subspectrum.length(damping)
+        length = alpha * damped.length
         poor = (gain < 0.25) & ~unresolved
-        good = (gain > 0.75) | ((damping == 0) & (gain >= 0.25))
+        good = (gain > 0.75) | ((damped.damping == 0) & (gain >= 0.25))
         state.radius[rows[poor]] = 0.5 * np.minimum(state.radius[rows[poor]], length[poor])
         state.radius[rows[good]] = np.maximum(state.radius[rows[good]], 2 * length[good])
         took = rows[accepted]
-        params[took], weighted[took], ssr[took] = trial[accepted], trial_weighted[accepted], trial_ssr[accepted]
+        state.params[took], state.weighted[took] = trial[accepted], trial_weighted[accepted]
+        state.ssr[took] = trial_ssr[accepted]
         moves[took] = move[accepted]
         moved[took] = True
         at_noise_floor[rows[unresolved & accepted]] = True
@@ -280,7 +290,7 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
         pending[rows[change[rows] < tol]] = False
     change[stationary] = full_change[stationary]
     state.change = change
-    _track_reversals(state, moves / state.floor[:, free])
+    _track_reversals(state, moves / floor, iteration)
     near_stationary = full_change < np.sqrt(tol)
     refused = (change < tol) & ~moved
     # At the floor a zig-zag that no longer closes in is rounding, not a cycle: LM takes no step
@@ -289,8 +299,7 @@ def _levenberg_marquardt_step(state: _Working, system: StepSystem, free: np.ndar
     state.settled = (stationary | (near_stationary & (refused | at_rounding_floor))
                      | ((change < tol) & system.rank_deficient))
     state.lost_rank = system.rank_deficient
-    state.ssr_before = np.column_stack([state.ssr, state.ssr_before[:, 0]])
-    state.params, state.weighted, state.ssr = params, weighted, ssr
+    state.ssr_two_back, state.ssr_previous = state.ssr_previous, ssr_before
 
 
 def _ssr_noise(ssr: np.ndarray, data_norm: np.ndarray) -> np.ndarray:
@@ -298,31 +307,34 @@ def _ssr_noise(ssr: np.ndarray, data_norm: np.ndarray) -> np.ndarray:
     return ROUNDING_NOISE * np.sqrt(ssr) * data_norm
 
 
-def _track_reversals(state: _Working, move: np.ndarray) -> None:
+def _track_reversals(state: _Working, move: np.ndarray, iteration: int) -> None:
     """Count consecutive steps that reverse the previous one and come back near the iterate
     before it (a ≈ a two steps back while a ≠ the last one).
 
     ``move`` (A, c) is the step in units fixed per run (not relative to the moving iterate),
     so that steps from different iterates compare. Sets ``shrinking`` where the step is shorter
-    than the one before, and keeps the lengths of the last OSCILLATION_WINDOW steps (newest
-    first) in ``past_lengths``, so that a zig-zag that shrinks (converging) can be told from a
-    cycle.
+    than the one before, and keeps the lengths of the last OSCILLATION_WINDOW steps before this
+    one in ``past_lengths``, a ring indexed by iteration (every run of a block iterates in step),
+    so that a zig-zag that shrinks (converging) can be told from a cycle.
     """
-    length, last_length = np.linalg.norm(move, axis=1), np.linalg.norm(state.last_move, axis=1)
+    length, last_length = np.sqrt(np.add.reduce(move * move, axis=1)), state.last_length   # as np.linalg.norm
     reversing = np.einsum("ac,ac->a", move, state.last_move) < -0.5 * length * last_length
     cycling = np.max(np.abs(move + state.last_move), axis=1) <= 0.5 * np.max(np.abs(move), axis=1)
     state.shrinking = length < last_length
     state.reversals = np.where(reversing & cycling, state.reversals + 1, 0)
-    state.past_lengths = np.column_stack([last_length, state.past_lengths[:, :-1]])
-    state.last_move = move
+    state.past_lengths[:, iteration % OSCILLATION_WINDOW] = last_length
+    state.oldest_length_slot = (iteration + 1) % OSCILLATION_WINDOW
+    state.last_move, state.last_length = move, length
 
 
 def _cycling(state: _Working) -> np.ndarray:
     """(A,) True where the last OSCILLATION_WINDOW steps reversed one another and the last step
     is at least CLOSING_IN times as long as the one OSCILLATION_WINDOW steps before it (a damped
     zig-zag shrinks by more)."""
-    length = np.linalg.norm(state.last_move, axis=1)
-    return (state.reversals >= OSCILLATION_WINDOW) & (length >= CLOSING_IN * state.past_lengths[:, -1])
+    cycling = state.reversals >= OSCILLATION_WINDOW
+    if cycling.any():
+        cycling &= state.last_length >= CLOSING_IN * state.past_lengths[:, state.oldest_length_slot]
+    return cycling
 
 
 def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
@@ -337,21 +349,22 @@ def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
     oscillating (an SSR still falling by more than its noise, however little relative to its
     size, and steps still shrinking are progress).
     """
-    runaway = ~np.isfinite(state.params).all(axis=1) | (np.abs(state.params) > state.bound).any(axis=1)
-    overflowed = ~np.isfinite(state.ssr) & (np.abs(state.params) > state.far).any(axis=1)
-    diverged = runaway | overflowed | (state.ssr > state.blowup) | np.isposinf(state.ssr)
-    undefined = ~diverged & ~np.isfinite(state.ssr)
-    healthy = ~diverged & ~undefined
-    singular = healthy & state.settled & state.lost_rank
-    converged = healthy & state.settled & ~state.lost_rank
-    two_back = state.ssr_before[:, 1]
-    not_falling = state.ssr >= two_back - _ssr_noise(two_back, state.data_norm)
-    oscillating = healthy & ~state.settled & not_falling & (state.change > 100 * tol) & _cycling(state)
-    codes = np.full(len(state), -1)
-    for mask, code in ((diverged, Outcome.DIVERGED), (undefined, Outcome.MODEL_ERROR),
-                       (singular, Outcome.SINGULAR), (converged, Outcome.CONVERGED),
-                       (oscillating, Outcome.OSCILLATING)):
-        codes[mask & (codes < 0)] = code
-    for code in (Outcome.DIVERGED, Outcome.MODEL_ERROR, Outcome.SINGULAR, Outcome.CONVERGED, Outcome.OSCILLATING):
-        finish(codes == code, code, iteration)
-        codes = codes[codes != code]
+    magnitude = np.abs(state.params)
+    finite = np.isfinite(state.ssr)
+    # Not below the bound: past it, infinite or NaN.
+    diverged = ~(magnitude <= state.bound).all(axis=1) | (state.ssr > state.blowup) | (state.ssr == np.inf)
+    if not finite.all():
+        diverged |= ~finite & (magnitude > state.far).any(axis=1)
+    undefined = ~diverged & ~finite
+    healthy = ~diverged & finite
+    settled = healthy & state.settled
+    oscillating = healthy & ~state.settled & _cycling(state)
+    if oscillating.any():
+        two_back = state.ssr_two_back
+        not_falling = state.ssr >= two_back - _ssr_noise(two_back, state.data_norm)
+        oscillating &= not_falling & (state.change > 100 * tol)
+    decided = diverged | undefined | settled | oscillating
+    if decided.any():
+        codes = np.select([diverged, undefined, settled & state.lost_rank, settled],
+                          [Outcome.DIVERGED, Outcome.MODEL_ERROR, Outcome.SINGULAR, Outcome.CONVERGED], Outcome.OSCILLATING)
+        finish(decided, codes[decided], iteration)

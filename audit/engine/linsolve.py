@@ -26,6 +26,9 @@ PIVOT_TOLERANCE = 1e-8
 #: exactly proportional columns are recognised even without an analytic Jacobian.
 RANK_TOLERANCE = 1e-9
 
+#: The smallest normal float: a pivot floor and a damping floor.
+TINY = np.finfo(float).tiny
+
 
 @dataclass
 class StepSystem:
@@ -78,12 +81,7 @@ class StepSystem:
                 its step is exactly zero.
         """
         count, width = residual.shape[0], len(rows)
-        # Runs last while building: every product and every pivot is then one contiguous row.
-        raw_gram = np.empty((width, width, count))
-        for i in range(width):
-            for j in range(i, width):
-                raw_gram[i, j] = raw_gram[j, i] = _row_products(rows[i], rows[j], count)
-        raw_gradient = np.stack([_row_products(row, residual, count) for row in rows])
+        raw_gram, raw_gradient = _row_products(rows, residual, count)
         if held is not None:
             kept = ~held.T
             raw_gram = np.where(kept[:, None, :] & kept[None, :, :], raw_gram, 0.0)
@@ -99,13 +97,14 @@ class StepSystem:
         factor, pivots = cholesky_runs_last(gram)
         gradient = np.where(broken, 0.0, raw_gradient / norms).T
         norms, dead_column = norms.T, dead_column.T
-        gram = np.moveaxis(gram, -1, 0)
+        gram = gram.transpose(2, 0, 1)
         emphasis = np.ones((count, width)) if norm_memory is None else (np.maximum(norm_memory, norms) / norms) ** 2
         careful = (pivots.min(axis=0) < PIVOT_TOLERANCE) & ~dead_column.any(axis=1) & ~broken
         rank_deficient = dead_column.any(axis=1) & ~broken
         left, values, right, projected, unit_values = _careful_factors(rows, residual, norms, careful, held, emphasis,
                                                                        norm_memory is not None)
-        rank_deficient[careful] = unit_values[:, -1] <= RANK_TOLERANCE * unit_values[:, 0]
+        if len(unit_values):
+            rank_deficient[careful] = unit_values[:, -1] <= RANK_TOLERANCE * unit_values[:, 0]
         free_columns = np.ones((count, width)) if held is None else (~held).astype(float)
         return cls(norms, gram, gradient, emphasis, factor, broken, rank_deficient, careful, left, values, right,
                    projected, free_columns)
@@ -128,7 +127,8 @@ class StepSystem:
         # results, meaningless where the pivots collapsed, are then replaced.
         with np.errstate(all="ignore"):
             steps = cholesky_solve(self.factor, self.gradient.T).T
-        steps[self.rank_deficient] = np.nan
+        if self.rank_deficient.any():
+            steps[self.rank_deficient] = np.nan
         if self.careful.any():
             with np.errstate(divide="ignore", invalid="ignore"):
                 coefficients = np.einsum("aji,aj->ai", self.left, self.projected) / self.singular_values
@@ -166,9 +166,18 @@ def _careful_factors(rows: list[np.ndarray], residual: np.ndarray, norms: np.nda
     return left, values, right, projected, unit_values
 
 
-def _row_products(first: np.ndarray, second: np.ndarray, count: int) -> np.ndarray:
-    """(A,) sums over observations of first·second, for arrays broadcastable to (A, m)."""
-    return np.broadcast_to(np.einsum("...m,...m->...", first, second), (count,))
+def _row_products(rows: list[np.ndarray], residual: np.ndarray, count: int) -> tuple[np.ndarray, np.ndarray]:
+    """JᵀJ (c, c, A) and Jᵀr (c, A), runs last (every product and every pivot is then one
+    contiguous row), from c derivative rows broadcastable to (A, m) and residuals (A, m)."""
+    width = len(rows)
+    columns = rows + [residual]
+    products = np.empty((width, width + 1, count))
+    for i in range(width):
+        for j in range(i, width + 1):
+            products[i, j] = np.einsum("...m,...m->...", columns[i], columns[j])
+    for i in range(width):
+        products[i + 1 : width, i] = products[i, i + 1 : width]
+    return products[:, :width], products[:, width]
 
 
 def _diagonal(values: np.ndarray) -> np.ndarray:
@@ -190,39 +199,53 @@ def cholesky_runs_last(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     width, _, count = matrix.shape
     factor = np.zeros_like(matrix)
     pivots = np.empty((width, count))
-    tiny = np.finfo(float).tiny
     for j in range(width):
         diagonal = matrix[j, j]
-        pivot = diagonal - _sum_over_first(factor[j, :j] * factor[j, :j])
+        pivot = diagonal - sum_over_first(factor[j, :j] * factor[j, :j])
         scale = np.where(diagonal > 0, diagonal, 1.0)
         pivots[j] = pivot / scale
-        root = np.sqrt(np.maximum(pivot, tiny * scale))
+        root = np.sqrt(np.maximum(pivot, TINY * scale))
         factor[j, j] = root
         if j + 1 < width:
-            below = matrix[j + 1 :, j] - _sum_over_first(np.swapaxes(factor[j + 1 :, :j], 0, 1) * factor[j, :j, None])
+            below = matrix[j + 1 :, j] - sum_over_first(np.swapaxes(factor[j + 1 :, :j], 0, 1) * factor[j, :j, None])
             factor[j + 1 :, j] = below / root
     return factor, pivots
 
 
 def cholesky_solve(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     """Solve L·Lᵀ·x = rhs for A systems at once, runs last: factor (c, c, A), rhs (c, A)."""
+    return back_substitution(factor, forward_substitution(factor, rhs))
+
+
+def forward_substitution(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve L·z = rhs for A lower triangular systems, runs last: factor (c, c, A), rhs (c, ..., A)
+    (extra axes between are further right-hand sides)."""
     width = rhs.shape[0]
+    spread = (slice(None),) + (None,) * (rhs.ndim - 2)   # a factor column against every right-hand side
     forward = np.empty_like(rhs)
     for i in range(width):
-        forward[i] = (rhs[i] - _sum_over_first(factor[i, :i] * forward[:i])) / factor[i, i]
+        forward[i] = (rhs[i] - sum_over_first(factor[i, :i][spread] * forward[:i])) / factor[i, i]
+    return forward
+
+
+def back_substitution(factor: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve Lᵀ·x = rhs for A lower triangular factors, runs last: factor (c, c, A), rhs (c, A)."""
+    width = rhs.shape[0]
     solution = np.empty_like(rhs)
     for i in reversed(range(width)):
-        tail = _sum_over_first(factor[i + 1 :, i] * solution[i + 1 :])
-        solution[i] = (forward[i] - tail) / factor[i, i]
+        tail = sum_over_first(factor[i + 1 :, i] * solution[i + 1 :])
+        solution[i] = (rhs[i] - tail) / factor[i, i]
     return solution
 
 
-def _sum_over_first(terms: np.ndarray) -> np.ndarray:
+def sum_over_first(terms: np.ndarray) -> np.ndarray | float:
     """Sum over the first axis, added in order for every run whatever the batch's size (an
     einsum may pick a different summation order for a different number of runs, and a run's
-    result must not depend on its batch)."""
-    total = np.zeros(terms.shape[1:])
-    for term in terms:
+    result must not depend on its batch). No terms sum to 0.0."""
+    if len(terms) < 2:
+        return terms[0] if len(terms) else 0.0
+    total = terms[0] + terms[1]
+    for term in terms[2:]:
         total += term
     return total
 

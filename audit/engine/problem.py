@@ -299,6 +299,8 @@ def _broadcast_runs(values: np.ndarray, shape: tuple[int, int], what: str) -> np
     # single run its (1,) would broadcast silently into a constant.
     if values.ndim == 1 and values.shape[0] != shape[1]:
         raise _ShapeMismatch(f"{what} returned shape {values.shape}; expected {shape} (runs, observations)")
+    if values.shape == shape:
+        return values
     try:
         return np.broadcast_to(values, shape)
     except ValueError:
