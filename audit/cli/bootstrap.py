@@ -130,7 +130,8 @@ def show(result: BootstrapResult, files: list[Path]) -> None:
             if label == "other":
                 meaning += (f" ({reasons['another_solution']} another solution, "
                             f"{reasons['descent_failed']} descent did not converge)")
-            fates.add_row(label.replace("_", " "), str(count), f"{shares[label]:.1%}", str(jackknife[label]), meaning)
+            fates.add_row(label.replace("_", " "), str(count), f"{shares[label]:.1%}", str(jackknife[label]),
+                          shown(meaning))
     print_table(fates)
     if result.flags:
         out.print("[bold]where bootstrap and linearisation disagree:[/]")

@@ -316,6 +316,10 @@ def _summarise(problem: Problem, best: np.ndarray, asymptotic: Estimates, replic
                              if count and label != "best")
         notes.append(f"{len(replicates.fate) - replicates.used_count} of {len(replicates.fate)} refits are left "
                      f"out of the intervals ({left_out})")
+    timed_out = replicates.counts()["timed_out"] + jackknife.counts()["timed_out"]
+    if timed_out:
+        notes.append(f"{timed_out} refits timed out: their chunk of refits used up [model] time_limit; raise it so "
+                     "that a whole chunk can finish, and run again")
     tail = (1.0 - confidence) / 2.0
     if replicates.failure_share > tail:
         notes.append(f"{replicates.failure_share:.1%} of the refits are left out, more than the {tail:.1%} beyond "
