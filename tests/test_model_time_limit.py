@@ -24,7 +24,8 @@ from audit.parallel.plan import ParallelPlan
 from audit.sweep import run as sweep_module
 from audit.sweep.run import SweepRequest, run_sweep
 from audit.uncertainty import bootstrap as bootstrap_module
-from audit.uncertainty.bootstrap import chunk_generator, run_bootstrap
+from audit.uncertainty.bootstrap import run_bootstrap
+from audit.uncertainty.refits import chunk_generator
 from audit.uncertainty.resampling import build_scheme
 
 DATA = "t,signal\n0,5.0\n1,3.1\n2,1.8\n3,1.1\n4,0.7\n5,0.4\n"
