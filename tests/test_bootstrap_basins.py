@@ -11,7 +11,8 @@ from scipy import stats
 from scipy.optimize import least_squares
 
 from audit.engine.problem import Problem
-from audit.uncertainty.bootstrap import chunk_generator, chunk_size, run_bootstrap
+from audit.uncertainty.bootstrap import chunk_size, run_bootstrap
+from audit.uncertainty.refits import chunk_generator
 from audit.uncertainty.resampling import build_scheme
 
 SAMPLES = 2000

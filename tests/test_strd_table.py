@@ -1,5 +1,5 @@
-"""The StRD table as a reader sees it: no digits for a run that never converged, and a header that
-names a step factor only where it changes the method."""
+"""The StRD table and JSON as a reader sees them: no digits for a run that never converged (a dash, null),
+and a header that names a step factor only where it changes the method."""
 from __future__ import annotations
 
 import json
@@ -31,6 +31,12 @@ def test_a_diverged_run_shows_a_dash_not_zero_digits(capsys, nist_dir, tmp_path)
     # certified values in no meaningful number of digits, so the table shows none.
     assert starts[0]["best"]["outcome"] == "diverged"
     assert first[3] == "diverged" and first[6:10] == ["—"] * 4
+    # The JSON says the same: no digits (null), not 0.0 digits, for every run that did not converge.
+    runs = [run for start in starts for run in start["runs"]]
+    assert any(run["outcome"] != "converged" for run in runs)
+    for run in runs:
+        digits = [run["lre_params"], run["lre_ssr"], run["lre_sd"]]
+        assert (digits == [None] * 3) == (run["outcome"] != "converged"), run
     # Start 2 converges: its parameter LRE is the NIST definition, min over parameters of
     # −log10(|fit − certified| / |certified|), capped at the 11 published digits, from the
     # certified values in BoxBOD.dat.

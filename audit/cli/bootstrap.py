@@ -41,8 +41,10 @@ ends at the same point; refits that did not converge, or converged to another so
 counted by kind and left out of the intervals. The leave-one-out refits (BCa) are such descents.
 
 Writes OUT/bootstrap.json and OUT/figures/bootstrap-histograms.{png,pdf} and
-OUT/figures/bootstrap-pairs.{png,pdf}. Results depend on the scenario's [bootstrap] seed, never
-on --jobs or the backend.
+OUT/figures/bootstrap-pairs.{png,pdf}. Finished chunks of refits are cached under OUT/cache, so an
+interrupted bootstrap (Ctrl-C, a killed process) computes only what is missing when run again
+with the same settings. Results depend on the scenario's [bootstrap] seed, never on --jobs or the
+backend.
 
 Exit status: 0 when bootstrap and asymptotic agree and every refit was used, 1 when something
 was flagged, refits were left out or a lower SSR than the audited one is known, 2 bad input."""
@@ -70,7 +72,7 @@ def register(subparsers) -> None:
                              "default: the scenario's [bootstrap] leverage_adjusted)")
     add_step_factors_option(parser, "the first of the scenario's [solver] step_factors", several=False)
     add_parallel_options(parser)
-    add_output_option(parser, "bootstrap.json and the figures")
+    add_output_option(parser, "bootstrap.json, the figures and the chunk cache")
     add_json_option(parser)
 
 
@@ -92,7 +94,7 @@ def run(args: argparse.Namespace) -> int:
 
         result = bootstrap_scenario(scenario, method=args.resampling, samples=samples, step_factor=step_factor,
                                     wild_multipliers=args.wild_weights, leverage_adjusted=args.leverage_adjusted,
-                                    reference=reference, plan=plan, progress=advance)
+                                    reference=reference, plan=plan, progress=advance, folder=Path(args.out))
     folder = Path(args.out)
     files = write_results(result, folder, "bootstrap", write_figures)
     if args.json:
@@ -130,7 +132,8 @@ def show(result: BootstrapResult, files: list[Path]) -> None:
             if label == "other":
                 meaning += (f" ({reasons['another_solution']} another solution, "
                             f"{reasons['descent_failed']} descent did not converge)")
-            fates.add_row(label.replace("_", " "), str(count), f"{shares[label]:.1%}", str(jackknife[label]), meaning)
+            fates.add_row(label.replace("_", " "), str(count), f"{shares[label]:.1%}", str(jackknife[label]),
+                          shown(meaning))
     print_table(fates)
     if result.flags:
         out.print("[bold]where bootstrap and linearisation disagree:[/]")

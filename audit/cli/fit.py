@@ -6,6 +6,7 @@ import argparse
 import numpy as np
 from rich.table import Table
 
+from ..engine.outcomes import Outcome
 from ..engine.single_fit import SingleFit, fit_once
 from ..errors import InputError
 from ..inputs.settings import nearest
@@ -75,7 +76,10 @@ def run(args: argparse.Namespace) -> int:
         print_json(fit.to_dict())
     else:
         show(fit)
-        if not fit.converged:
+        if fit.outcome == Outcome.TIMED_OUT:
+            out.print(f"[dim]next: raise {shown('[model] time_limit')} in scenario.toml, or find what makes the model "
+                      "slow along this path[/]", soft_wrap=True)
+        elif not fit.converged:
             out.print(f"[dim]next: a smaller --step-factors, --solver lm, or 'fitaudit sweep {shown(args.scenario)}' to see "
                       "which starts and step factors reach the best fit[/]", soft_wrap=True)
     return EXIT_OK if fit.converged else EXIT_FINDING
@@ -93,7 +97,7 @@ def show(fit: SingleFit) -> None:
         trace.add_row(str(k), number(ssr, 8), number(change, 3), *(number(v, 8) for v in point))
     print_table(trace)
     colour = "green" if fit.converged else "red"
-    out.print(f"outcome: [{colour}]{fit.outcome.label}[/]: {fit.outcome.meaning}")
+    out.print(f"outcome: [{colour}]{fit.outcome.label}[/]: {shown(fit.outcome.meaning)}")
     if fit.estimates is None:
         return
     estimates = fit.estimates

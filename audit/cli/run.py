@@ -34,8 +34,9 @@ the verdict are listed in the README; change any of them in scenario.toml under 
 {QUICK_SAMPLES} bootstrap replicates (the computing then takes seconds; drawing the figures takes
 longer). Without it the scenario's own [sweep] and [bootstrap] settings are used.
 
-Writes OUT/{AUDIT_FILE} (every number) and OUT/{FIGURES}/*.png and *.pdf; the sweep's chunks are
-cached under OUT/cache, so running again with the same settings reuses them. The results do
+Writes OUT/{AUDIT_FILE} (every number) and OUT/{FIGURES}/*.png and *.pdf; the sweep's and the
+bootstrap's chunks are cached under OUT/cache, so running again with the same settings (after
+Ctrl-C or a killed process, say) reuses every finished chunk. The results do
 not depend on --jobs or the backend.
 
 Exit status: 0 when every check passes, 1 when any warns, fails or did not run, 2 bad input."""
@@ -50,7 +51,7 @@ def register(subparsers) -> None:
     parser = add_command(subparsers, "run", "the whole audit in one command, with a verdict", DESCRIPTION,
                          EXAMPLES, run)
     add_scenario_argument(parser)
-    add_output_option(parser, f"{AUDIT_FILE}, the figures and the sweep's cache")
+    add_output_option(parser, f"{AUDIT_FILE}, the figures and the chunk caches")
     parser.add_argument("--quick", action="store_true",
                         help=f"small designs for a first look ({QUICK_POINTS} starts, {QUICK_SAMPLES} bootstrap "
                              "replicates)")

@@ -12,6 +12,7 @@ raises the damping and is retried from the same factorisation.
 """
 from __future__ import annotations
 
+from contextlib import suppress
 from dataclasses import dataclass
 
 import numpy as np
@@ -22,6 +23,7 @@ from .compiled import compiled_applies, fit_compiled
 from .iterate import Runs, run_block
 from .outcomes import Outcome, outcome_counts, outcome_labels
 from .problem import Problem
+from .time_limit import ChunkTimeout, chunk_budget
 
 METHODS = ("gn", "lm")
 
@@ -128,7 +130,9 @@ def fit_batch(
         history: keep the last ``history`` iterates of every run (0: none).
 
     Returns:
-        BatchFit with one entry per run, in the order of ``starts``.
+        BatchFit with one entry per run, in the order of ``starts``. With ``problem.time_limit``
+        the call is one chunk of that budget: once it is spent, the runs still fitting end
+        ``Outcome.TIMED_OUT`` (at their start, SSR NaN) and the call returns.
 
     Raises:
         InputError: for arguments of the wrong shape or out of range.
@@ -138,11 +142,13 @@ def fit_batch(
     """
     runs = _validated_runs(problem, starts, step_factor, y, x, weights, free, method, tol, max_iter, history)
     count, n = runs.starts.shape
+    # Every run is written when it ends; one the chunk's time limit stops keeps these values:
+    # timed out, at its start, with no SSR.
     result = BatchFit(
-        params=np.full((count, n), np.nan),
+        params=runs.starts.copy(),
         ssr=np.full(count, np.nan),
         iterations=np.zeros(count, dtype=np.int64),
-        outcome=np.full(count, Outcome.STALLED, dtype=np.int8),
+        outcome=np.full(count, Outcome.TIMED_OUT, dtype=np.int8),
         max_rel_change=np.full(count, np.nan),
         step_factor=runs.step_factor.copy(),
         names=problem.names,
@@ -155,8 +161,11 @@ def fit_batch(
     if remaining is None:
         remaining = np.arange(count)
     size = block_size(problem, len(runs.free))
-    for first in range(0, len(remaining), size):
-        run_block(problem, runs, remaining[first : first + size], result, method, tol, max_iter, history)
+    # The budget covers the numpy engine, where the user's model runs (the compiled loop of a
+    # formula calls no Python and cannot be interrupted anyway).
+    with chunk_budget(problem.time_limit), suppress(ChunkTimeout):
+        for first in range(0, len(remaining), size):
+            run_block(problem, runs, remaining[first : first + size], result, method, tol, max_iter, history)
     return result
 
 

@@ -19,6 +19,7 @@ class Outcome(IntEnum):
     STALLED = 3
     SINGULAR = 4
     MODEL_ERROR = 5
+    TIMED_OUT = 6
 
     @property
     def label(self) -> str:
@@ -41,6 +42,8 @@ MEANINGS: dict[Outcome, str] = {
     Outcome.SINGULAR: "the Jacobian lost rank, so the step is not determined by the data",
     Outcome.MODEL_ERROR: ("the model raised, or returned non-finite or wrongly shaped values, at this run's "
                           "parameters, all within ten times their ranges"),
+    Outcome.TIMED_OUT: ("its chunk of fits used up [model] time_limit before the run ended (the model was slow, "
+                        "or never returned, somewhere in that chunk)"),
 }
 
 

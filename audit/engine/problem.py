@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputError
-from .time_limit import ModelTimeout, time_limit
+from .time_limit import ChunkTimeout, ModelTimeout, budget_spent, time_limit
 
 #: Relative step of the central differences: the cube root of machine epsilon balances the
 #: truncation error (O(h^2)) against rounding (O(eps / h)).
@@ -67,9 +67,10 @@ class Problem:
         kernel: optional ``kernel() -> loop or None``: the compiled Gauss-Newton loop of
             ``kernel_loop`` for this model (formula models), or None where it cannot be had;
             ``fit_batch`` then takes the compiled path where it applies (see ``compiled``).
-        time_limit: optional seconds one batched model or Jacobian call may take; runs whose
-            call does not return in time are treated like runs that make the model raise
-            (``engine.time_limit`` says where the limit can be applied).
+        time_limit: optional seconds one chunk of fits (one ``fit_batch`` call) may take; the
+            runs still fitting when it is spent are timed out. A model call outside a chunk may
+            take this long; runs whose call does not return in time are treated like runs that
+            make the model raise (``engine.time_limit`` says where the limit can be applied).
     """
 
     model: Callable[..., np.ndarray]
@@ -110,7 +111,8 @@ class Problem:
                 raise InputError("typical magnitudes must be positive, one per parameter")
             object.__setattr__(self, "typical", typical)
         if self.time_limit is not None and not 0 < self.time_limit < np.inf:
-            raise InputError(f"the time limit of a model call must be a positive number of seconds, got {self.time_limit}")
+            raise InputError("the time limit of a chunk of fits must be a positive number of seconds, "
+                             f"got {self.time_limit}")
 
     @property
     def n_params(self) -> int:
@@ -315,13 +317,18 @@ def _isolate_failures(call, params: np.ndarray, x: np.ndarray, problem: Problem,
 
     ``call`` returns one (B, m) array (``width`` None) or a list of ``width`` such arrays. Only
     the error path recurses; a model that works is called once. Runs whose evaluation raised,
-    gave output of the wrong shape or ran past the time limit get NaN (a batch too large to finish
-    in time is split too, so a slow but finite model only costs time).
+    gave output of the wrong shape or ran past the time limit get NaN (outside a chunk, a batch
+    too large to finish in time is split too). Inside a chunk whose budget is spent it raises
+    ``ChunkTimeout`` instead (``engine.time_limit``).
     """
     try:
         with np.errstate(all="ignore"), time_limit(problem.time_limit):
             return call(params, x)
     except (Exception, SystemExit, ModelTimeout):
+        # Once the chunk's time is up there is none left to find the slow runs: ``fit_batch``
+        # times out every run still fitting.
+        if budget_spent():
+            raise ChunkTimeout from None
         # sys.exit() inside a model is a failure of those runs, not the end of the audit.
         if params.shape[0] == 1:
             missing = np.full((1, problem.n_obs), np.nan)

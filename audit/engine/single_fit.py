@@ -78,7 +78,8 @@ def fit_once(problem: Problem, start: np.ndarray, *, step_factor: float = 1.0, m
                        history=max_iter + 1)
     trail = result.history[0]
     iterates = trail[np.isfinite(trail).all(axis=1)]
-    if not np.array_equal(iterates[-1], result.params[0], equal_nan=True):
+    # A fit stopped by [model] time_limit has no trail kept: it ends at its start.
+    if not len(iterates) or not np.array_equal(iterates[-1], result.params[0], equal_nan=True):
         iterates = np.vstack([iterates, result.params[0]])
     ssr = problem.ssr(iterates)
     with np.errstate(all="ignore"):

@@ -28,6 +28,7 @@ OUTCOME_STYLE: dict[str, tuple[str, str, str]] = {
     "diverged": ("#c0392b", "\\\\", "diverged"),
     "singular": ("#e0b94a", "++", "singular Jacobian"),
     "model_error": ("#d9d9d9", "--", "model error"),
+    "timed_out": ("#f2f2f2", "||", "timed out ([model] time_limit)"),
 }
 
 #: Marker of each kind of end (same keys as OUTCOME_STYLE), for paths and point plots, so
@@ -40,6 +41,7 @@ OUTCOME_MARKERS: dict[str, str] = {
     "diverged": "^",
     "singular": "P",
     "model_error": "X",
+    "timed_out": "*",
 }
 
 #: A qualitative sequence for distinct solutions, dark to light, for maps with several optima:

@@ -57,16 +57,29 @@ class CompiledFormula:
                            self.parameter_symbols + self.predictor_symbols))
         tree = parse_checked(text, symbols, where)
         self.expression = to_sympy(tree, text, symbols, where)
+        try:
+            self._differentiate_and_compile(sympy)
+        except RecursionError:
+            # parse_checked's depth limit keeps sympy well inside Python's recursion limit; this
+            # turns any case it misses into a message instead of a traceback.
+            raise InputError(f"{where}: the formula is nested too deeply for its derivatives") from None
+        self._kernel = _NOT_BUILT
+
+    def _differentiate_and_compile(self, sympy) -> None:
         self.derivatives = tuple(sympy.diff(self.expression, symbol) for symbol in self.parameter_symbols)
         self.derivative_texts = tuple(str(derivative) for derivative in self.derivatives)
         self.unused_parameters = tuple(name for name, symbol in zip(self.parameter_names, self.parameter_symbols)
                                        if not self.expression.has(symbol))
-        arguments = list(self.predictor_symbols + self.parameter_symbols)
-        # dummify: user names such as "numpy" must not shadow anything in the generated code.
-        self._model = sympy.lambdify(arguments, self.expression, modules="numpy", dummify=True)
-        self._jacobian = sympy.lambdify(arguments, list(self.derivatives), modules="numpy", cse=True,
-                                        dummify=True)
-        self._kernel = _NOT_BUILT
+        # The generated code names its arguments x_i and p_j, so that user names such as "numpy"
+        # cannot shadow anything in it. They are real symbols like the user's: lambdify's own
+        # dummify would swap in symbols without assumptions, and rebuilding nested functions of
+        # those makes sympy's evaluation search far longer (seconds for six nested calls).
+        renamed = {symbol: sympy.Symbol(f"x_{i}", real=True) for i, symbol in enumerate(self.predictor_symbols)}
+        renamed.update({symbol: sympy.Symbol(f"p_{j}", real=True) for j, symbol in enumerate(self.parameter_symbols)})
+        arguments = list(renamed.values())
+        self._model = sympy.lambdify(arguments, self.expression.xreplace(renamed), modules="numpy", dummify=False)
+        self._jacobian = sympy.lambdify(arguments, [derivative.xreplace(renamed) for derivative in self.derivatives],
+                                        modules="numpy", cse=True, dummify=False)
 
     def __reduce__(self):
         return (compile_formula, (self.text, self.parameter_names, self.predictor_names, self.where))

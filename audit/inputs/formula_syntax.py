@@ -10,6 +10,7 @@ no formula text ever reaches ``eval`` or sympy's own string parser.
 from __future__ import annotations
 
 import ast
+import functools
 import keyword
 import math
 import unicodedata
@@ -29,9 +30,25 @@ CONSTANTS = ("pi",)
 #: Longer texts are refused before parsing: no honest model needs more, and very long or deeply
 #: nested input could exhaust the parser's or sympy's recursion.
 MAX_LENGTH = 4000
+#: Most numbers, names, operations and function calls in one formula (a sum of twenty Gaussian
+#: peaks has 260). Exact derivatives grow with the square of a product's factors: at this size
+#: a formula still compiles in seconds.
+MAX_NODES = 300
+#: Deepest nesting: each function call, power, unary sign or change between +/- and * or /
+#: opens a level (a chain of + or of * stays on one). Typical models reach 5 to 10. Exact
+#: derivatives of nested calls grow with the square of the depth (40 random chains of 18
+#: nested functions compiled in at most 3 s each on a busy machine), and sympy's recursion
+#: fails near 150.
+MAX_DEPTH = 20
 #: Largest magnitude (decimal exponent) a constant part of a formula may reach; beyond double range.
 MAX_DECIMAL_EXPONENT = 308
+#: Most decimal digits in an exact constant (numbers are kept as exact fractions): a constant
+#: power such as (1 + 1e-20)**100000 would otherwise be computed to two million digits.
+MAX_EXACT_DIGITS = 1000
 
+#: Unicode categories shown as a space in messages: control, format (bidirectional overrides),
+#: line and paragraph separators.
+_UNPRINTABLE = ("Cc", "Cf", "Zl", "Zp")
 _OPERATORS = {ast.Add: "+", ast.Sub: "-", ast.Mult: "*", ast.Div: "/", ast.Pow: "**"}
 _REFUSED_OPERATORS = {ast.FloorDiv: "//", ast.Mod: "%", ast.MatMult: "@", ast.LShift: "<<", ast.RShift: ">>",
                       ast.BitOr: "|", ast.BitAnd: "&", ast.BitXor: "^"}
@@ -54,9 +71,14 @@ _REFUSED_NODES = {
 
 
 def formula_error(where: str, text: str, reason: str, start: int | None = None, end: int | None = None) -> InputError:
-    """An InputError naming ``where``, with the text and the characters start:end marked."""
-    shown = " ".join(text.split()) if start is None else (
-        f"{text[:start]}>>{text[start:end]}<<{text[end:]}".replace("\n", " "))
+    """An InputError naming ``where``, with the text and the characters start:end marked.
+
+    Line breaks of every kind and other control or format characters in the text are shown as
+    spaces, so that the message stays one line and its columns still count the text's characters.
+    """
+    text = "".join(" " if character.isspace() or unicodedata.category(character) in _UNPRINTABLE else character
+                   for character in text)
+    shown = " ".join(text.split()) if start is None else f"{text[:start]}>>{text[start:end]}<<{text[end:]}"
     column = "" if start is None else f" (column {start + 1})"
     return InputError(f"{where}: {reason}{column}: {shown}")
 
@@ -106,11 +128,27 @@ def parse_checked(text: str, names: Iterable[str], where: str) -> ast.Expression
     except (RecursionError, MemoryError, ValueError):
         raise InputError(f"{where}: the formula is nested too deeply or contains invalid characters") from None
     allowed = {unicodedata.normalize("NFKC", name) for name in names}
-    pending: list[ast.AST] = [tree.body]
+    pending: list[tuple[ast.AST, int]] = [(tree.body, 1)]
+    count = 0
     while pending:
-        node = pending.pop()
-        pending.extend(reversed(_checked_children(node, flat, allowed, where)))
+        node, level = pending.pop()
+        count += 1
+        if count > MAX_NODES:
+            raise InputError(f"{where}: the formula has more than {MAX_NODES} numbers, names, operations and "
+                             "function calls; write a model this large as a Python model file")
+        if level > MAX_DEPTH:
+            start, end = _span(flat, node)
+            raise formula_error(where, flat, f"nested more than {MAX_DEPTH} levels deep", start, end)
+        children = _checked_children(node, flat, allowed, where)
+        pending.extend((child, level + (0 if _same_chain(node, child) else 1)) for child in reversed(children))
     return tree
+
+
+def _same_chain(parent: ast.AST, child: ast.AST) -> bool:
+    """True when ``child`` continues ``parent``'s chain of + and - or of * and / (one level)."""
+    families = ((ast.Add, ast.Sub), (ast.Mult, ast.Div))
+    return (isinstance(parent, ast.BinOp) and isinstance(child, ast.BinOp)
+            and any(isinstance(parent.op, family) and isinstance(child.op, family) for family in families))
 
 
 def _checked_children(node: ast.AST, text: str, allowed: set[str], where: str) -> list[ast.AST]:
@@ -199,14 +237,19 @@ def to_sympy(tree: ast.Expression, text: str, symbols: dict, where: str):
             raise formula_error(where, flat, "division by zero or an undefined value", *_span(flat, node))
         if value.has(sympy.I) or (value.is_number and value.is_real is False):
             raise formula_error(where, flat, "this part is not a real number", *_span(flat, node))
+        if exact_digits(value) > MAX_EXACT_DIGITS:
+            raise formula_error(where, flat, f"this constant needs more than {MAX_EXACT_DIGITS} exact digits",
+                                *_span(flat, node))
         return value
 
     def convert(node: ast.AST):
         if isinstance(node, ast.Constant):
             if isinstance(node.value, int):
-                return sympy.Integer(node.value)
-            start, end = _span(flat, node)
-            return sympy.Rational(flat[start:end].replace("_", ""))
+                number = sympy.Integer(node.value)
+            else:
+                start, end = _span(flat, node)
+                number = sympy.Rational(flat[start:end].replace("_", ""))
+            return constant_check(number, node)
         if isinstance(node, ast.Name):
             return sympy.pi if node.id in CONSTANTS else by_normal_form[node.id]
         if isinstance(node, ast.UnaryOp):
@@ -215,7 +258,9 @@ def to_sympy(tree: ast.Expression, text: str, symbols: dict, where: str):
         if isinstance(node, ast.Call):
             argument = convert(node.args[0])
             name = node.func.id
-            function = getattr(sympy, FUNCTIONS[name])
+            if name == "exp" and argument.is_number:
+                _check_exact_exponential(argument, flat, node, where)
+            function = real_abs() if name == "abs" else getattr(sympy, FUNCTIONS[name])
             return constant_check(function(argument, 10) if name == "log10" else function(argument), node)
         left, right = convert(node.left), convert(node.right)
         if isinstance(node.op, ast.Pow) and left.is_number and right.is_number:
@@ -231,14 +276,63 @@ def to_sympy(tree: ast.Expression, text: str, symbols: dict, where: str):
         raise InputError(f"{where}: the formula is nested too deeply") from None
 
 
+@functools.cache
+def real_abs():
+    """sympy's Abs, differentiated as for a real argument: sign(u)·u'.
+
+    A formula's model is real-valued (where an argument leaves the real domain numpy gives NaN),
+    but sympy cannot always prove an argument real (acos(u) is real only for |u| ≤ 1) and then
+    differentiates |u| through re(u) and im(u), which split again at every nested function: the
+    derivative of abs(tan(log10(exp(acos(abs(arccos(tan(arccos(a*x))))))))) ran to 100 000
+    characters. The class keeps the name Abs, so every printer treats it as sympy's.
+    """
+    import sympy
+
+    def derivative(self, symbol):
+        return sympy.Derivative(self.args[0], symbol, evaluate=True) * sympy.sign(self.args[0])
+
+    return type("Abs", (sympy.Abs,), {"_eval_derivative": derivative})
+
+
+def exact_digits(value) -> float:
+    """Decimal digits of the longest numerator or denominator among the exact numbers in ``value``."""
+    import sympy
+
+    bits = [max(abs(number.p).bit_length(), number.q.bit_length()) for number in value.atoms(sympy.Rational)]
+    return max(bits, default=0) * math.log10(2)
+
+
 def _check_power_size(base, exponent, text: str, node: ast.AST, where: str) -> None:
-    """Refuse a constant power beyond double range before sympy computes it exactly."""
+    """Refuse a constant power beyond double range, or one whose exact value would need more than
+    MAX_EXACT_DIGITS digits (a rational power of an exact number is expanded), before sympy
+    computes it exactly."""
     try:
         magnitude = abs(float(base)) if base.is_real else math.inf
         power = float(exponent) if exponent.is_real else math.inf
     except (OverflowError, TypeError):
         magnitude = power = math.inf
+    if exponent.is_Rational and abs(power) * exact_digits(base) > MAX_EXACT_DIGITS:
+        raise formula_error(where, text, f"this constant power needs more than {MAX_EXACT_DIGITS} exact digits",
+                            *_span(text, node))
     if magnitude == 0 or magnitude == 1:
         return
     if not math.isfinite(power) or abs(power * math.log10(magnitude)) > MAX_DECIMAL_EXPONENT:
         raise formula_error(where, text, "constant power outside the double-precision range", *_span(text, node))
+
+
+def _check_exact_exponential(argument, text: str, node: ast.AST, where: str) -> None:
+    """Refuse exp(c·log(r)) of exact numbers whose value sympy would expand to r**c beyond
+    MAX_EXACT_DIGITS digits."""
+    import sympy
+
+    growth = 0.0
+    for term in sympy.Add.make_args(argument):
+        coefficient, rest = term.as_coeff_Mul()
+        for logarithm in rest.atoms(sympy.log):
+            try:
+                growth += abs(float(coefficient)) * exact_digits(logarithm.args[0])
+            except OverflowError:
+                growth = math.inf
+    if growth > MAX_EXACT_DIGITS:
+        raise formula_error(where, text, f"this constant needs more than {MAX_EXACT_DIGITS} exact digits",
+                            *_span(text, node))

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import functools
 import os
+import threading
 import time
 from collections.abc import Callable, Iterable, Iterator, Sized
 from contextlib import ExitStack
@@ -22,6 +23,8 @@ BACKENDS = ("processes", "dask")
 #: Work estimated below it stays in this process: a bootstrap of about a second ran 1.55 times
 #: faster with one job than with two fresh workers.
 WORKER_START_SECONDS = 1.0
+#: How often a worker process checks that the process that started it is still there.
+PARENT_CHECK_SECONDS = 1.0
 
 
 @dataclass(frozen=True)
@@ -87,7 +90,8 @@ def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: Para
             stack.enter_context(_dask_backend(plan.scheduler))
             parallel = joblib.Parallel(n_jobs=-1, return_as="generator", pre_dispatch="2*n_jobs")
         else:
-            parallel = joblib.Parallel(n_jobs=plan.jobs, return_as="generator", pre_dispatch="2*n_jobs")
+            parallel = joblib.Parallel(n_jobs=plan.jobs, return_as="generator", pre_dispatch="2*n_jobs",
+                                       initializer=watch_parent, initargs=(os.getpid(),))
         yield from parallel(joblib.delayed(function)(chunk) for chunk in chunks)
 
 
@@ -96,6 +100,24 @@ def local_mapper(plan: ParallelPlan) -> Callable[[Callable[[Any], Any], Sized], 
     (figures): a Dask plan's workers may sit on other machines, so it maps over local cores."""
     local = plan if plan.backend == "processes" else ParallelPlan()
     return functools.partial(map_chunks, plan=local)
+
+
+def watch_parent(parent: int) -> None:
+    """Worker initializer: end this worker process once ``parent``, the process that started it,
+    is gone.
+
+    joblib's workers wait for work from their parent; killed outright (SIGKILL, an out-of-memory
+    kill), a parent cannot stop them, and they were seen running on, busy or idle, for at least
+    400 s. A daemon thread notices the parent's death (the worker is handed to another parent)
+    within PARENT_CHECK_SECONDS and ends the worker at once; a worker that starts after its
+    parent died ends at once too.
+    """
+    def watch() -> None:
+        while os.getppid() == parent:
+            time.sleep(PARENT_CHECK_SECONDS)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="fitaudit-parent-watch", daemon=True).start()
 
 
 class _dask_backend:

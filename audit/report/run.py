@@ -72,8 +72,8 @@ def run_audit(path_or_scenario: str | Path | Scenario, *, out: str | Path | None
 
     Args:
         path_or_scenario: a scenario folder, its TOML file, or a loaded ``Scenario``.
-        out: folder for the sweep's chunk cache (``out/cache``), reused by a later run with the
-            same settings; None: a temporary folder, nothing reused. Nothing else is written
+        out: folder for the sweep's and the bootstrap's chunk caches (``out/cache``), reused by a
+            later run with the same settings; None: a temporary folder, nothing reused. Nothing else is written
             here: ``AuditResult.write(folder)`` writes the files.
         quick: small designs for a first look: QUICK_POINTS starts, QUICK_RESOLUTION points per
             map axis, QUICK_SAMPLES bootstrap replicates.
@@ -131,8 +131,10 @@ def run_audit(path_or_scenario: str | Path | Scenario, *, out: str | Path | None
         done[0] += count
         report("bootstrap", done[0] / refits)
 
+    # Without an output folder nothing outlives the run, so nothing is worth storing.
     bootstrap = _after_best(stages, best, "bootstrap", lambda: bootstrap_scenario(
-        scenario, samples=samples, known=best, plan=plan, progress=bootstrap_progress), hint)
+        scenario, samples=samples, known=best, plan=plan, progress=bootstrap_progress,
+        folder=None if out is None else Path(out)), hint)
     identifiability = _after_best(stages, best, "identifiability", lambda: identify_scenario(
         scenario, known=best, plan=plan,
         on_step=lambda done, total: report("identifiability", done / max(total, 1))), hint)

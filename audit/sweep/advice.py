@@ -7,6 +7,7 @@ at the cause:
   sign, a factor, a swapped column) sends every step the wrong way: the derivative check;
 - runs ending singular: the Jacobian lost rank, so some parameters enter the model only in
   combination (a product, a sum): identifiability;
+- runs timed out: the model is too slow for [model] time_limit somewhere;
 - otherwise runs diverged, oscillated or stalled: smaller step factors, Levenberg-Marquardt,
   more iterations, or solutions outside the ranges that a wider range would admit.
 """
@@ -48,6 +49,9 @@ def next_step(problem: Problem, start: np.ndarray, counts: np.ndarray, solutions
         return (f"runs converged only to {solutions_outside} solution(s) outside the searched ranges: widen a range "
                 "if they are physical, else check the model")
     kind = CATEGORIES[int(np.argmax(totals))].replace("_", " ")
+    if kind == "timed out":
+        return ("most runs timed out: their chunks of fits used up [model] time_limit; raise it so that a whole "
+                "chunk can finish, or find what makes the model slow at those parameters")
     return (f"most runs ended {kind}: try smaller step factors (--step-factors) or Levenberg-Marquardt "
             "(--solver lm), more iterations ([solver] max_iterations), and check the derivatives with "
             "`fitaudit derivatives`")

@@ -15,7 +15,7 @@ from ..engine.outcomes import MEANINGS, Outcome
 from ..jsonable import jsonable
 
 #: How a run ended once converged runs are split by solution; the keys of the figure style.
-CATEGORIES = ("best", "other", "diverged", "oscillating", "stalled", "singular", "model_error")
+CATEGORIES = ("best", "other", "diverged", "oscillating", "stalled", "singular", "model_error", "timed_out")
 CATEGORY_MEANINGS = {
     "best": "converged to the best solution found (lowest residual sum of squares inside the searched ranges)",
     "other": "converged, but to another solution (a different local optimum)",

@@ -40,7 +40,7 @@ from .chunk import FAILURE_KINDS, ChunkWork
 from .equivalent_solutions import ALIAS, Equivalence, SameCurve, find_equivalent
 from .recommend import (REGION_LEVEL, REGION_MIN_STARTS, choose_step_factor, histogram_percentile, region_box,
                         safe_regions)
-from .result import BEST, BasinMap, SweepResult
+from .result import BEST, CATEGORIES, BasinMap, SweepResult
 from .solutions import Catalogue, SolutionTolerance, merge_catalogues
 from .starts import StartDesign, make_design, map_axis_values, map_design, search_space
 from .tally import DesignTally, MapGrid
@@ -288,7 +288,8 @@ class _Sweep:
             chunks=dict(self.counters), cache=str(self.cache),
             warnings=self._warnings(merged, design_best, level & ~symmetric_inside, solution_inside, equivalence,
                                    starts)
-            + _symmetry_notes(equivalence, symmetric_inside, curve_shares, recommended, request))
+            + _symmetry_notes(equivalence, symmetric_inside, curve_shares, recommended, request)
+            + _timed_out_notes(tally.counts, maps, self.problem.time_limit))
 
     def _warnings(self, merged: Catalogue, design_best: Catalogue, level: np.ndarray, inside: np.ndarray,
                   equivalence: Equivalence, starts: int) -> list[str]:
@@ -347,6 +348,20 @@ def _symmetry_notes(equivalence: Equivalence, symmetric_inside: np.ndarray, curv
         notes.append(f"counting the equivalent solution(s), {curve_shares[m, f]:.1%} of the starts reach the best "
                      f"fit's curve with {request.methods[m]} and step factor {request.step_factors[f]:g}")
     return notes
+
+
+def _timed_out_notes(counts: np.ndarray, maps: list[BasinMap], limit: float | None) -> list[str]:
+    """A note on the runs whose chunk used up the time limit, in the design (``counts`` (M, F, K))
+    and in the maps, naming the setting that stopped them."""
+    timed_out = CATEGORIES.index("timed_out")
+    design = int(counts[..., timed_out].sum())
+    in_maps = sum(int(np.count_nonzero(basin_map.category == timed_out)) for basin_map in maps)
+    if not design and not in_maps:
+        return []
+    where = " and ".join(part for part in (f"{design} of the design's runs" if design else "",
+                                            f"{in_maps} of the maps' runs" if in_maps else "") if part)
+    return [f"{where} timed out: their chunk of fits (up to {CHUNK_RUNS} runs) used up [model] time_limit = "
+            f"{limit:g} s; raise it so that a whole chunk can finish, and run again"]
 
 
 def _catalogue(chunk: dict[str, np.ndarray]) -> Catalogue:

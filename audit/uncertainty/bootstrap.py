@@ -3,8 +3,10 @@
 ``run_bootstrap`` draws replicate data sets with one of the schemes of ``resampling``, refits
 every one through ``fit_batch`` starting from the best fit, and does the same for the m
 leave-one-out (jackknife) data sets that give BCa its acceleration. The refits run in chunks
-(``chunk_size``) through ``parallel.map_chunks``; chunk k draws from a generator seeded by the
-scenario's seed and k alone, so the result is the same for any number of jobs or backend.
+(``chunk_size``) through ``parallel.map_chunks`` (``refits``); chunk k draws from a generator
+seeded by the scenario's seed and k alone, so the result is the same for any number of jobs or
+backend. Given an output folder, every finished chunk is stored at once, so that an interrupted
+or repeated bootstrap computes only the chunks that are missing.
 
 Only the refits that reached the best fit's solution enter the statistics: those that end where a
 Levenberg-Marquardt descent from the best fit on the same replicate data ends (see
@@ -15,22 +17,24 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
+from pathlib import Path
 
 import numpy as np
 from scipy import stats
 
-from ..engine.batch import RefitSettings, fit_batch
+from ..engine.batch import RefitSettings
 from ..engine.best_fit import KnownFit, SweepReference, best_known_fit
 from ..engine.estimates import Estimates, estimate
 from ..engine.problem import Problem
 from ..errors import InputError
 from ..inputs.scenario import Scenario
 from ..jsonable import jsonable
-from ..parallel.plan import ParallelPlan, map_chunks
+from ..parallel.plan import ParallelPlan
 from .disagreement import Flag, IntervalComparison, compare_intervals
 from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percentile_interval
-from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale, same_point
-from .resampling import Scheme, build_scheme, leave_one_out
+from .refits import KINDS, ChunkFits, Refitter, refit_all, refit_cache_folder, split
+from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale
+from .resampling import build_scheme
 
 #: Refits per chunk: up to MAX_CHUNK (large enough for the batched solver to amortise numpy's
 #: per-call cost and a worker its per-task cost), and fewer for many observations, so that a
@@ -73,6 +77,8 @@ class BootstrapResult:
             of a parameter pair: sqrt(2·F(confidence; 2, m − n)).
         notes: plain-language remarks on how far the intervals can be trusted.
         audited_fit: which fit ``best`` is and any lower SSR known (set by ``bootstrap_scenario``).
+        chunks: chunks of refits {"total", "reused" (read from the cache), "computed"}.
+        cache: the folder of the stored chunks, or None.
     """
 
     names: tuple[str, ...]
@@ -97,6 +103,8 @@ class BootstrapResult:
     pair_region_scale: float
     notes: list[str] = field(default_factory=list)
     audited_fit: KnownFit | None = None
+    chunks: dict[str, int] = field(default_factory=dict)
+    cache: str | None = None
 
     @property
     def flags(self) -> list[Flag]:
@@ -119,6 +127,7 @@ class BootstrapResult:
             "asymptotic": self.asymptotic, "comparison": self.comparison,
             "pair_region_scale": self.pair_region_scale,
             "replicates": self.replicates, "jackknife": self.jackknife, "audited_fit": self.audited_fit,
+            "chunks": self.chunks, "cache": self.cache,
         })
 
     def _parameter(self, j: int) -> dict:
@@ -134,74 +143,11 @@ class BootstrapResult:
         }
 
 
-@dataclass(frozen=True)
-class _Chunk:
-    """One piece of work: ``count`` refits of one kind, starting at replicate ``first``."""
-
-    kind: str
-    index: int
-    first: int
-    count: int
-
-
-@dataclass(frozen=True)
-class _ChunkFits:
-    """What a worker sends back for one chunk (plain arrays, cheap to pickle)."""
-
-    params: np.ndarray
-    ssr: np.ndarray
-    outcome: np.ndarray
-    iterations: np.ndarray
-    descent: np.ndarray
-    descent_outcome: np.ndarray
-    same_point: np.ndarray
-
-
-@dataclass(frozen=True, eq=False)
-class _Refitter:
-    """Draws (or builds) the data of one chunk, refits it and checks where each refit ended;
-    runs inside the workers.
-
-    Compared and hashed by identity (eq=False): its fields hold arrays, and the Dask backend
-    hashes the function it sends."""
-
-    problem: Problem
-    scheme: Scheme
-    best: np.ndarray
-    scale: np.ndarray
-    refit: RefitSettings
-    seed: int
-
-    def __call__(self, chunk: _Chunk) -> _ChunkFits:
-        if chunk.kind == "bootstrap":
-            problem, data = self.problem, self.scheme.draw(chunk_generator(self.seed, chunk.index), chunk.count)
-        else:
-            problem, data = leave_one_out(self.problem, chunk.first, chunk.count)
-        starts = np.tile(self.best, (chunk.count, 1))
-        options = dict(y=data.y, x=data.x, weights=data.weights, tol=self.refit.tolerance,
-                       max_iter=self.refit.max_iterations)
-        # The descent from the best fit tells its basin: full Levenberg-Marquardt steps, each one
-        # lowering the SSR; refits that are such runs already are their own descent. The
-        # leave-one-out estimates are descents alone: BCa's acceleration measures how the
-        # estimate moves with each observation, not how the refits' solver copes, and a set
-        # missing the observations where that solver failed would skew it.
-        descends = chunk.kind == "jackknife" or (self.refit.method == "lm" and self.refit.step_factor == 1.0)
-        if descends:
-            fit = descent = fit_batch(problem, starts, 1.0, method="lm", **options)
-        else:
-            fit = fit_batch(problem, starts, self.refit.step_factor, method=self.refit.method, **options)
-            descent = fit_batch(problem, starts, 1.0, method="lm", **options)
-        same = same_point(problem, fit.params, descent.params, self.scale, y=data.y, x=data.x,
-                          weights=data.weights)
-        return _ChunkFits(params=fit.params, ssr=fit.ssr, outcome=fit.outcome, iterations=fit.iterations,
-                          descent=descent.params, descent_outcome=descent.outcome, same_point=same)
-
-
 def run_bootstrap(problem: Problem, best: np.ndarray, *, method: str = "residual", samples: int = 2000,
                   seed: int = 0, confidence: float = 0.95, refit: RefitSettings | None = None,
                   wild_multipliers: str = "rademacher", leverage_adjusted: bool = False,
-                  plan: ParallelPlan | None = None,
-                  progress: Callable[[int], None] | None = None) -> BootstrapResult:
+                  plan: ParallelPlan | None = None, progress: Callable[[int], None] | None = None,
+                  cache: Path | None = None, fingerprint: str = "") -> BootstrapResult:
     """Bootstrap the fit ``best`` of ``problem`` and compare with its asymptotic uncertainty.
 
     Args:
@@ -215,7 +161,12 @@ def run_bootstrap(problem: Problem, best: np.ndarray, *, method: str = "residual
         wild_multipliers: "rademacher" or "mammen" (wild only).
         leverage_adjusted: leverage-adjust the residuals (residual and wild only).
         plan: where the chunks run (default: one process).
-        progress: called with the number of refits finished after every chunk.
+        progress: called with the number of refits finished after every chunk (stored or computed).
+        cache: folder under which finished chunks are stored and found again (a subfolder named
+            by these settings and ``fingerprint``), so that an interrupted or repeated bootstrap
+            computes only what is missing; None: nothing stored.
+        fingerprint: what identifies ``problem`` (its model's code and data) in the cache's name;
+            needed with ``cache`` (``bootstrap_scenario`` gives the scenario's fingerprint).
 
     Returns:
         BootstrapResult; the B + m refits are also in it.
@@ -235,19 +186,24 @@ def run_bootstrap(problem: Problem, best: np.ndarray, *, method: str = "residual
     scheme = build_scheme(method, problem, best, wild_multipliers=wild_multipliers,
                           leverage_adjusted=leverage_adjusted and method != "pairs")
     size = chunk_size(problem)
-    chunks = _chunks("bootstrap", int(samples), size) + _chunks("jackknife", problem.n_obs, size)
-    pieces: dict[str, list[_ChunkFits]] = {"bootstrap": [], "jackknife": []}
+    chunks = split("bootstrap", int(samples), size) + split("jackknife", problem.n_obs, size)
     scale = distance_scale(asymptotic.std_errors, best, problem.typical)
-    worker = _Refitter(problem=problem, scheme=scheme, best=best, scale=scale, refit=refit, seed=int(seed))
-    for chunk, fits in zip(chunks, map_chunks(worker, chunks, plan or ParallelPlan(jobs=1))):
-        pieces[chunk.kind].append(fits)
-        if progress is not None:
-            progress(chunk.count)
-    replicates, jackknife = (_classified(pieces[kind]) for kind in ("bootstrap", "jackknife"))
+    worker = Refitter(problem=problem, scheme=scheme, best=best, scale=scale, refit=refit, seed=int(seed))
+    folder = None
+    if cache is not None:
+        if not fingerprint:
+            raise InputError("a bootstrap cache needs the fingerprint of the problem it belongs to")
+        folder = refit_cache_folder(cache, fingerprint, {
+            "best": best, "method": method, "samples": int(samples), "seed": int(seed), "chunk": size,
+            "wild_multipliers": wild_multipliers if method == "wild" else None, "refit": refit.__dict__,
+            "leverage_adjusted": bool(leverage_adjusted and method != "pairs")})
+    pieces, counters = refit_all(worker, chunks, plan or ParallelPlan(jobs=1), folder, progress)
+    replicates, jackknife = (_classified(pieces[kind]) for kind in KINDS)
     result = _summarise(problem, best, asymptotic, replicates, jackknife, method=method,
                         wild_multipliers=wild_multipliers if method == "wild" else None,
                         leverage_adjusted=leverage_adjusted and method != "pairs", samples=int(samples),
                         seed=int(seed), confidence=confidence, refit=refit)
+    result.chunks, result.cache = counters, None if folder is None else str(folder)
     if leverage_adjusted and method == "pairs":
         result.notes.insert(0, "leverage adjustment applies to resampled residuals; the pairs bootstrap "
                                "resamples observations, so it was not used")
@@ -259,18 +215,7 @@ def chunk_size(problem: Problem) -> int:
     return int(np.clip(CHUNK_ELEMENTS // problem.n_obs, MIN_CHUNK, MAX_CHUNK))
 
 
-def chunk_generator(seed: int, index: int) -> np.random.Generator:
-    """The generator bootstrap chunk ``index`` draws its replicates from: the seed and the index
-    alone decide it, never the worker that runs the chunk."""
-    return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(index,)))
-
-
-def _chunks(kind: str, total: int, size: int) -> list[_Chunk]:
-    return [_Chunk(kind=kind, index=k, first=first, count=min(size, total - first))
-            for k, first in enumerate(range(0, total, size))]
-
-
-def _classified(pieces: list[_ChunkFits]) -> ReplicateFits:
+def _classified(pieces: list[ChunkFits]) -> ReplicateFits:
     def joined(name: str) -> np.ndarray:
         return np.concatenate([getattr(piece, name) for piece in pieces])
     return classify(joined("params"), joined("ssr"), joined("outcome"), joined("iterations"), joined("descent"),
@@ -316,6 +261,10 @@ def _summarise(problem: Problem, best: np.ndarray, asymptotic: Estimates, replic
                              if count and label != "best")
         notes.append(f"{len(replicates.fate) - replicates.used_count} of {len(replicates.fate)} refits are left "
                      f"out of the intervals ({left_out})")
+    timed_out = replicates.counts()["timed_out"] + jackknife.counts()["timed_out"]
+    if timed_out:
+        notes.append(f"{timed_out} refits timed out: their chunk of refits used up [model] time_limit; raise it so "
+                     "that a whole chunk can finish, and run again")
     tail = (1.0 - confidence) / 2.0
     if replicates.failure_share > tail:
         notes.append(f"{replicates.failure_share:.1%} of the refits are left out, more than the {tail:.1%} beyond "
@@ -341,7 +290,7 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
                        step_factor: float | None = None, wild_multipliers: str | None = None,
                        leverage_adjusted: bool | None = None, reference: SweepReference | None = None,
                        known: KnownFit | None = None, plan: ParallelPlan | None = None,
-                       progress: Callable[[int], None] | None = None) -> BootstrapResult:
+                       progress: Callable[[int], None] | None = None, folder: Path | None = None) -> BootstrapResult:
     """``run_bootstrap`` with the scenario's [bootstrap] and [solver] settings.
 
     Args:
@@ -354,6 +303,8 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
         known: that best known fit when the caller has it already (the audit run); ``reference``
             is then not used.
         plan, progress: as for ``run_bootstrap``.
+        folder: output folder; finished chunks are stored under ``folder/cache`` and reused by a
+            later run with the same scenario and settings. None: nothing stored.
 
     Raises:
         InputError: when no fit from the start converges, or for settings out of range.
@@ -375,5 +326,6 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
                            samples=settings.samples if samples is None else samples, seed=settings.seed,
                            confidence=settings.confidence, refit=refit,
                            wild_multipliers=wild_multipliers or settings.wild_weights,
-                           leverage_adjusted=leverage_adjusted, plan=plan, progress=progress)
+                           leverage_adjusted=leverage_adjusted, plan=plan, progress=progress,
+                           cache=None if folder is None else Path(folder) / "cache", fingerprint=scenario.fingerprint)
     return replace(result, audited_fit=known)

@@ -31,7 +31,7 @@ from ..jsonable import jsonable
 SAME_POINT = 1.0
 
 #: Kinds of end, in the order of the figures' outcome styles.
-FATES = ("best", "other", "diverged", "oscillating", "stalled", "singular", "model_error")
+FATES = ("best", "other", "diverged", "oscillating", "stalled", "singular", "model_error", "timed_out")
 FATE_MEANINGS = {
     "best": "converged to the point a descent from the best fit reaches on the same data: the best fit's "
             "solution; used in the intervals",

@@ -118,16 +118,23 @@ class ProblemCheck:
 
     def _run(self, start: int, factor: int) -> dict:
         g, at = self.grades, (start, factor)
+        # A run that did not converge agrees in no meaningful number of digits: its LREs are null
+        # (the table shows a dash), not the 0 that the clipped formula gives.
+        converged = g.outcome[at] == Outcome.CONVERGED
+
+        def digits(lre: np.ndarray) -> float | None:
+            return float(lre[at]) if converged else None
+
         extended = None
         if np.isfinite(g.extended_ssr[at]):
-            extended = {"ssr": g.extended_ssr[at], "lre_ssr": g.extended_lre_ssr[at],
-                        "lre_sd": g.extended_lre_sd[at], "largest_relative_shift": g.extended_shift[at]}
+            extended = {"ssr": g.extended_ssr[at], "lre_ssr": digits(g.extended_lre_ssr),
+                        "lre_sd": digits(g.extended_lre_sd), "largest_relative_shift": g.extended_shift[at]}
         return {
             "step_factor": self.step_factors[factor], "outcome": Outcome(int(g.outcome[at])).label,
             "verdict": self.label(start, factor), "iterations": g.iterations[at],
             "params": dict(zip(self.names, g.params[at])), "ssr": g.ssr[at],
-            "std_errors": dict(zip(self.names, g.std_errors[at])), "lre_params": g.lre_params[at],
-            "lre_ssr": g.lre_ssr[at], "lre_sd": g.lre_sd[at], "ssr_digits_available": g.ssr_digits[at],
+            "std_errors": dict(zip(self.names, g.std_errors[at])), "lre_params": digits(g.lre_params),
+            "lre_ssr": digits(g.lre_ssr), "lre_sd": digits(g.lre_sd), "ssr_digits_available": g.ssr_digits[at],
             "precision_limited": g.precision_limited[at], "extended_precision": extended,
         }
 
