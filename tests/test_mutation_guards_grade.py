@@ -131,3 +131,48 @@ def test_an_ssr_below_eight_resolved_digits_is_refined_in_extended_precision(nis
     assert 4 < grades.ssr_digits[0] < 6 + 2 and grades.precision_limited[0]
     assert log_relative_error(grades.extended_ssr[0], 1.4307867721E-25) >= 6      # NIST certified SSR
     assert Verdict(int(grades.verdict[0])) == Verdict.PASS
+
+
+#: Lanczos1, NIST certified values (literals from the certificate): parameters, standard
+#: deviations, residual sum of squares with 24 − 6 = 18 degrees of freedom.
+LANCZOS1_PARAMS = np.array([9.5100000027E-02, 1.0000000001E+00, 8.6070000013E-01, 3.0000000002E+00,
+                            1.5575999998E+00, 5.0000000001E+00])
+LANCZOS1_SD = np.array([5.3347304234E-11, 2.7473038179E-10, 1.3576062225E-10, 3.3308253069E-10,
+                        1.8815731448E-10, 1.1057500538E-10])
+LANCZOS1_SSR = 1.4307867721E-25
+
+
+def lanczos1_jacobian(b: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """(m, 6) derivatives of NIST's model line y = b1·exp(−b2·x) + b3·exp(−b4·x) + b5·exp(−b6·x), by hand."""
+    columns = []
+    for amplitude, rate in ((b[0], b[1]), (b[2], b[3]), (b[4], b[5])):
+        decay = np.exp(-rate * x)
+        columns += [decay, -amplitude * x * decay]
+    return np.column_stack(columns)
+
+
+def test_a_precision_limited_run_with_ten_ppm_off_parameters_has_few_digits_not_another_minimum(nist):
+    # Lanczos1 moved 1e-5 (relative) along its weakest direction (the last right singular vector
+    # of the relatively scaled Jacobian, numpy.linalg.svd): the residuals stay so small that
+    # double precision cannot resolve the SSR, so the run is refined, and the refinement lands on
+    # NIST's SSR. The run is at the certified minimum ("same SSR") with parameters and SDs short
+    # of 6 digits: few digits, whatever the SDs' digits are, since only the SSR says which
+    # minimum was found.
+    fitted = reference_model(nist("Lanczos1"))
+    x = fitted.reference.x.ravel()
+    weakest = np.linalg.svd(lanczos1_jacobian(LANCZOS1_PARAMS, x) * LANCZOS1_PARAMS)[2][-1]
+    point = LANCZOS1_PARAMS * (1 + 1e-5 * weakest)
+    fit = BatchFit(params=point[None, :], ssr=fitted.problem.ssr(point[None, :]), iterations=np.array([5]),
+                   outcome=np.array([Outcome.CONVERGED]), max_rel_change=np.zeros(1), step_factor=np.ones(1),
+                   names=fitted.problem.names, method="gn")
+    grades = grade_runs(fitted, fit)
+    # SDs at the point rescaled to the refined SSR, by hand: sqrt(SSR/18 · diag((JᵀJ)⁻¹)) with
+    # NIST's SSR and numpy.linalg.inv; their digits against NIST's SDs lie between 4 and 6.
+    jacobian = lanczos1_jacobian(point, x)
+    sd = np.sqrt(LANCZOS1_SSR / 18 * np.diag(np.linalg.inv(jacobian.T @ jacobian)))
+    sd_digits = log_relative_error(sd, LANCZOS1_SD).min()
+    assert 4 < sd_digits < 6 and log_relative_error(point, LANCZOS1_PARAMS).min() < 6
+    assert grades.precision_limited[0]
+    assert log_relative_error(grades.extended_ssr[0], LANCZOS1_SSR) >= 6
+    assert grades.extended_lre_sd[0] == pytest.approx(sd_digits, abs=0.05)
+    assert Verdict(int(grades.verdict[0])) == Verdict.FEW_DIGITS
