@@ -1,9 +1,11 @@
 """StRD verdicts at their edges, with the digit bar written here as literals (6 digits for the
 parameters and the SSR, 4 for the standard deviations: the pass bar the project states for the
-NIST StRD nonlinear problems), never read back from the code's own constants; and the verdicts'
-words."""
+NIST StRD nonlinear problems), never read back from the code's own constants; the verdicts'
+words; a precision-limited Lanczos1 run; runs that must not warn; how a problem's model lines
+become the Problem (NIST's model line, its exact derivatives, refusals by name)."""
 from __future__ import annotations
 
+import dataclasses
 import warnings
 
 import numpy as np
@@ -11,6 +13,7 @@ import pytest
 
 from audit.engine.batch import BatchFit
 from audit.engine.outcomes import Outcome
+from audit.errors import InputError
 from audit.validation.grade import Verdict, _std_errors, _verdicts, grade_runs, lre_ssr_at_certified, reference_model, verdict_label
 from audit.validation.reference import log_relative_error
 
@@ -173,6 +176,62 @@ def test_a_precision_limited_run_with_ten_ppm_off_parameters_has_few_digits_not_
     sd_digits = log_relative_error(sd, LANCZOS1_SD).min()
     assert 4 < sd_digits < 6 and log_relative_error(point, LANCZOS1_PARAMS).min() < 6
     assert grades.precision_limited[0]
-    assert log_relative_error(grades.extended_ssr[0], LANCZOS1_SSR) >= 6
+    ssr_digits = log_relative_error(grades.extended_ssr[0], LANCZOS1_SSR)
+    assert ssr_digits >= 6 and grades.extended_lre_ssr[0] == ssr_digits
     assert grades.extended_lre_sd[0] == pytest.approx(sd_digits, abs=0.05)
     assert Verdict(int(grades.verdict[0])) == Verdict.FEW_DIGITS
+
+
+@pytest.mark.parametrize("problem, model_lines, message", [
+    # A model line naming an unknown parameter: the refusal says which problem's model.
+    ("Misra1a", ("y = b1*(1-exp[-c2*x])  +  e",), r"^Misra1a model: unknown name 'c2'"),
+    # A transformed response naming something besides the response: the response is named.
+    ("Nelson", ("log[y*q] = b1 - b2*x1 * exp[-b3*x2]  +  e",), r"^Nelson response: unknown name 'y'"),
+])
+def test_unreadable_model_lines_are_refused_with_the_problem_and_the_part(nist, problem, model_lines, message):
+    # The published model lines (NIST files) with one name changed.
+    with pytest.raises(InputError, match=message):
+        reference_model(dataclasses.replace(nist(problem), model_lines=model_lines))
+
+
+def test_a_response_transform_undefined_at_an_observation_is_refused_without_a_warning(nist):
+    # Nelson fits log[y] (NIST's model line); an observation of 0 has log 0 = −inf (IEEE 754, numpy.log):
+    # the problem is refused by name, and numpy's RuntimeWarning does not reach the output.
+    nelson = nist("Nelson")
+    y = nelson.y.copy()
+    y[0] = 0.0
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with pytest.raises(InputError, match=r"^Nelson model: the response transform log\(y\) is not finite for every "
+                                             r"observation$"):
+            reference_model(dataclasses.replace(nelson, y=y))
+
+
+def test_a_run_that_ran_off_to_huge_finite_parameters_is_graded_without_a_warning(nist):
+    # Misra1a (NIST's model line y = b1·(1 − exp(−b2·x))) with b1 = 1e200: every model value is
+    # near 1e197, so the SSR overflows to inf and so does the rounding floor's Σ|r|·(|y| + |f|);
+    # inf/inf leaves no digit count (NaN, IEEE 754). Such a run is an answer ("diverged"), and
+    # numpy's overflow RuntimeWarning must not reach a command's output.
+    fitted = reference_model(nist("Misra1a"))
+    params = np.array([[1e200, 5.5015643181E-04]])                 # b2: NIST's certified value
+    fit = BatchFit(params=params, ssr=fitted.problem.ssr(params), iterations=np.array([9]),
+                   outcome=np.array([Outcome.DIVERGED]), max_rel_change=np.zeros(1), step_factor=np.ones(1),
+                   names=fitted.problem.names, method="gn")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        grades = grade_runs(fitted, fit)
+    assert fit.ssr[0] == np.inf and np.isnan(grades.ssr_digits[0]) and not grades.precision_limited[0]
+    assert Verdict(int(grades.verdict[0])) == Verdict.NOT_CONVERGED
+
+
+def test_the_problem_carries_nists_model_line_and_its_exact_derivatives(nist):
+    # Misra1a, NIST's model line y = b1*(1-exp[-b2*x]) + e: the problem's formula is that line in
+    # parentheses without the error term (reports print it, the derivative audit differentiates
+    # it), and its Jacobian is the exact one, by hand: ∂f/∂b1 = 1 − exp(−b2·x), ∂f/∂b2 = b1·x·exp(−b2·x),
+    # at NIST's certified values; central differences would agree only to about 1e-10.
+    problem = reference_model(nist("Misra1a")).problem
+    assert problem.formula == "b1*(1-exp(-b2*x))"
+    b1, b2 = 2.3894212918E+02, 5.5015643181E-04
+    x = problem.x.ravel()
+    exact = np.array([1 - np.exp(-b2 * x), b1 * x * np.exp(-b2 * x)])
+    np.testing.assert_allclose(problem.weighted_derivatives(np.array([[b1, b2]]))[0], exact, rtol=1e-14, atol=0)
