@@ -1,5 +1,6 @@
-"""Bootstrap intervals and the flags comparing them with the t interval: tails, ties, the
-acceleration by hand, each flag's boundary, sign and words, and the JSON keys.
+"""Bootstrap intervals: tails, ties, the acceleration by hand, BCa against scipy.stats.bootstrap,
+the undefined cases (the flags comparing them with the t interval are in
+test_mutation_guards_disagreement.py).
 
 References are worked out by hand in the comments (order statistics with linear interpolation,
 Hyndman & Fan 1996 type 7; the jackknife acceleration of Efron & Tibshirani 1993, ch. 14) or come
@@ -7,7 +8,6 @@ from scipy.special.
 """
 from __future__ import annotations
 
-import json
 import warnings
 from types import SimpleNamespace
 
@@ -16,7 +16,6 @@ import pytest
 from scipy import special, stats
 
 from audit.errors import InputError
-from audit.uncertainty.disagreement import compare_intervals
 from audit.uncertainty.intervals import bca_interval, jackknife_acceleration, percentile_interval
 
 
@@ -82,87 +81,6 @@ def test_bca_levels_move_with_bias_and_acceleration():
     expected = np.quantile(replicates[:, 0], levels)
     assert result.lower[0] == pytest.approx(expected[0], rel=1e-12)
     assert result.upper[0] == pytest.approx(expected[1], rel=1e-12)
-
-
-def comparison(estimate, t_lower, t_upper, lower, upper, bias=None, std_error=None, replicates=None, bca=True):
-    """compare_intervals on hand-made inputs (the bootstrap interval given as BCa or percentile)."""
-    n = len(estimate)
-    estimate, lower, upper = (np.asarray(v, dtype=float) for v in (estimate, lower, upper))
-    nan = np.full(n, np.nan)
-    given = (lower, upper)
-    replicates = np.vstack([estimate, estimate]) if replicates is None else np.asarray(replicates, dtype=float)
-    return compare_intervals(tuple("abcdefgh"[:n]), estimate, np.asarray(t_lower, float), np.asarray(t_upper, float),
-                             given if not bca else (nan, nan), given if bca else (nan, nan),
-                             np.ones(n) if std_error is None else np.asarray(std_error, float),
-                             np.zeros(n) if bias is None else np.asarray(bias, float), replicates)
-
-
-def test_flags_stay_quiet_exactly_at_their_limits():
-    # Width 3 against 2 is the ratio 1.5; width 1 against 1.5 is 1/1.5; arms 1.5 against 1;
-    # bias 0.25 standard errors: all at the limits the module states, none beyond.
-    exact = comparison(estimate=[1.0, 1.0], t_lower=[0.0, 0.5], t_upper=[2.0, 2.0], lower=[0.0, 0.5],
-                       upper=[3.0, 1.5], bias=[0.25, -0.25])
-    assert exact.width_ratio.tolist() == [1.5, 2 / 3]
-    assert exact.arm_ratio.tolist() == [2.0, 1.0]
-    assert [(flag.parameter, flag.kind) for flag in exact.flags] == [("a", "asymmetry")]
-    arms = comparison(estimate=[2.0], t_lower=[0.75], t_upper=[3.25], lower=[1.0], upper=[3.5])
-    assert arms.arm_ratio.tolist() == [1.5] and arms.flags == []
-
-
-def test_each_flag_says_which_way():
-    result = comparison(estimate=[1.0, 1.0, 1.0, 1.0], t_lower=[0.5, -1.0, 0.0, 0.0], t_upper=[1.5, 3.0, 2.0, 2.0],
-                        lower=[-1.0, 0.5, 0.5, -1.0], upper=[3.0, 1.5, 3.0, 1.5], bias=[0.5, -0.5, 0.0, 0.0],
-                        std_error=[1.0, 1.0, 1.0, 1.0], bca=False)
-    assert result.compared == ("percentile",) * 4
-    reasons = {(flag.parameter, flag.kind): flag.reason for flag in result.flags}
-    assert reasons[("a", "width")] == ("the percentile interval is 4.00 times as wide as the t interval: the "
-                                       "linearised standard error understates the spread of the refits")
-    assert reasons[("b", "width")] == ("the percentile interval is 0.25 times as wide as the t interval: the "
-                                       "linearised standard error overstates the spread of the refits")
-    assert reasons[("c", "asymmetry")] == ("the percentile interval reaches 4.00 times as far above the estimate as "
-                                           "below it, while the t interval is symmetric by construction: the "
-                                           "estimate's distribution is skewed")
-    assert reasons[("d", "asymmetry")] == ("the percentile interval reaches 4.00 times as far below the estimate as "
-                                           "above it, while the t interval is symmetric by construction: the "
-                                           "estimate's distribution is skewed")
-    assert reasons[("a", "bias")] == ("the bootstrap bias is 0.50 standard errors (above the estimate); above 0.25 "
-                                      "it is not negligible")
-    assert reasons[("b", "bias")] == ("the bootstrap bias is 0.50 standard errors (below the estimate); above 0.25 "
-                                      "it is not negligible")
-
-
-def test_an_interval_ending_at_the_estimate_does_not_contain_it():
-    result = comparison(estimate=[1.0], t_lower=[0.5], t_upper=[1.5], lower=[1.0], upper=[2.0])
-    assert np.isnan(result.arm_ratio[0])
-    assert [flag.reason for flag in result.flags] == [
-        "the BCa interval [1, 2] does not contain the estimate 1: the refits are strongly biased"]
-
-
-def test_bound_flags_need_every_replicate_strictly_on_one_side():
-    replicates = [[2.0, -2.0, 3.0, -3.0], [1.0, -1.0, 0.0, 0.0], [3.0, -3.0, 1.0, -1.0]]
-    result = comparison(estimate=[2.0, -2.0, 2.0, -2.0], t_lower=[-0.5, -4.0, -0.5, -4.0],
-                        t_upper=[4.0, 0.5, 4.0, 0.5], lower=[0.5, -3.5, 0.5, -3.5], upper=[3.5, -0.5, 3.5, -0.5],
-                        replicates=replicates)
-    bounds = {flag.parameter: flag.reason for flag in result.flags if flag.kind == "bound"}
-    # Parameters c and d have a replicate at exactly zero: not strictly one-signed.
-    assert bounds == {
-        "a": "the t interval reaches -0.5, below zero, while the estimate and all 3 used replicates are positive: "
-             "the linearised interval crosses a bound the parameter respects",
-        "b": "the t interval reaches 0.5, above zero, while the estimate and all 3 used replicates are negative: "
-             "the linearised interval crosses a bound the parameter respects",
-    }
-
-
-def test_to_dict_keys_carry_the_numbers():
-    result = comparison(estimate=[1.0, 2.0], t_lower=[0.0, 1.0], t_upper=[2.0, 3.0], lower=[0.0, 1.5],
-                        upper=[3.0, 2.5], bias=[0.5, 0.0], std_error=[2.0, 1.0])
-    data = json.loads(json.dumps(result.to_dict()))
-    assert data["compared"] == ["bca", "bca"]
-    assert data["lower"] == [0.0, 1.5] and data["upper"] == [3.0, 2.5]
-    assert data["width_ratio"] == [1.5, 0.5]           # 3/2 and 1/2 by hand
-    assert data["arm_ratio"] == [2.0, 1.0]              # (3 − 1)/(1 − 0), (2.5 − 2)/(2 − 1.5)
-    assert data["bias_ratio"] == [0.25, 0.0]            # 0.5/2
-    assert data["flags"][0] == {"parameter": "a", "kind": "asymmetry", "reason": result.flags[0].reason}
 
 
 def test_acceleration_is_scale_free_also_below_a_unit_spread():

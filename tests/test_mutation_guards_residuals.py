@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import json
 import math
+import warnings
+from fractions import Fraction
 
 import numpy as np
 import pytest
@@ -103,9 +105,9 @@ def test_a_single_residual_of_the_other_sign_makes_runs_applicable():
 
 
 def test_a_residual_at_the_rounding_bound_carries_no_sign():
-    # Fitted values of 1: the bound is 1e-12 · 1 exactly; a residual of exactly 1e-12 is rounding
+    # Fitted values of 1: the bound is 1e-12 · 1 exactly; a residual of exactly −1e-12 is rounding
     # noise, so the signs read + + − + (3 runs), not + − + − + (5 runs): counted by hand.
-    residuals = np.array([0.5, 0.4, 1e-12, -0.3, 0.2])
+    residuals = np.array([0.5, -1e-12, 0.4, -0.3, 0.2])
     check = check_residuals(residuals, np.ones(5), np.arange(5.0), n_params=1).runs
     assert check.statistic == 3.0
 
@@ -293,7 +295,8 @@ def test_to_dict_keys_carry_the_numbers():
 
 
 @pytest.mark.parametrize("change, message", [
-    ({"residuals": np.array([0.1, np.inf, 0.2, -0.1])}, "with non-finite values"),
+    ({"residuals": np.array([0.1, np.inf, 0.2, -0.1])},
+     r"^residuals must be a 1-D array of finite numbers, got shape \(4,\) with non-finite values$"),
     ({"residuals": np.zeros((2, 2))}, r"shape \(2, 2\)$"),
     ({"x": np.arange(5.0)}, "x must be finite"),
     ({"weights": np.array([1.0, 0.0, 1.0, 1.0])}, "weights"),
@@ -313,3 +316,32 @@ def test_residuals_all_of_one_value_leave_normality_not_applicable():
     assert check.name == "normality" and math.isnan(check.p_value)
     assert check.finding == ("not applicable: every residual has the same value, which no distribution test "
                              "can judge")
+
+
+def test_residuals_of_one_value_have_no_lag_one_correlation_and_no_warning():
+    # A series without variance has no autocorrelation: r1 = Σc_t·c_{t−1} / Σc_t² is 0/0 (Box &
+    # Jenkins' definition); Durbin-Watson d = 0 (no differences), so z = (0 − 2)·sqrt(m)/2 = −3 for
+    # m = 9 and p = 2·Φ(−3) (scipy.stats.norm). NaN is the answer, not an accident: numpy's
+    # RuntimeWarning must not reach a command's output.
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        check = serial_check(np.full(9, 0.5), LEVELS)
+    assert math.isnan(check.details["lag1_autocorrelation"])
+    assert check.statistic == 0.0 and check.details["z"] == -3.0
+    assert check.p_value == pytest.approx(2 * stats.norm.sf(3.0), rel=1e-12)
+
+
+def test_exact_fractions_are_read_as_numbers():
+    # Residuals, fitted values, x and weights handed over as exact rationals (e.g. from a symbolic
+    # computation) are numbers like any other: the checks see the weighted residuals r·sqrt(w) in
+    # floats. References: scipy.stats.shapiro and scipy.stats.spearmanr on those floats; the signs
+    # + − + − + − in x order make 6 runs, counted by hand.
+    residuals = [Fraction(3, 10), Fraction(-1, 10), Fraction(1, 5), Fraction(-2, 5), Fraction(1, 2), Fraction(-3, 10)]
+    fitted = [Fraction(k, 3) for k in range(1, 7)]
+    weights = [Fraction(k, 2) for k in range(1, 7)]
+    result = check_residuals(residuals, fitted, [Fraction(k, 7) for k in range(6)], n_params=1, weights=weights)
+    weighted = np.array([float(r) * math.sqrt(float(w)) for r, w in zip(residuals, weights)])
+    assert result.normality.statistic == pytest.approx(stats.shapiro(weighted).statistic, rel=1e-12)
+    spearman = stats.spearmanr(np.abs(weighted), [float(value) for value in fitted])
+    assert result.variance_rank.statistic == pytest.approx(spearman.statistic, rel=1e-12)
+    assert result.runs.statistic == 6.0

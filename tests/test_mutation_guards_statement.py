@@ -70,3 +70,14 @@ def test_each_refusal_names_what_is_wrong(arguments, message):
 def test_rounding_needs_a_finite_positive_uncertainty(expanded):
     with pytest.raises(InputError, match="expanded uncertainty must be finite and positive"):
         round_to_uncertainty(1.0, expanded)
+
+
+def test_whole_numbers_beyond_sixty_four_bits_are_stated_like_any_other_value():
+    # Python ints past 2**63 (a count such as 6·10^23 typed as an integer) are numbers like any
+    # other: k = t_{0.975, 10} = 2.228 (scipy.stats.t), U = 2.228e21; to the power of ten of the
+    # larger, 6e23: U = 0.02228 → 0.022, the estimate to the same place 6.000 (GUM 7.2.6, by hand).
+    k = stats.t.ppf(0.975, 10)
+    statement = uncertainty_statement(["N"], [6 * 10**23], [10**21], dof=10)
+    assert statement.lines[0] == f"N = (6.000 ± 0.022) × 10^23 (k = {k:.2f}, p = 95 %, nu = 10)"
+    assert statement.expanded[0] == pytest.approx(k * 1e21, rel=1e-12)
+    assert statement.lower[0] == pytest.approx(6e23 - k * 1e21, rel=1e-12)
