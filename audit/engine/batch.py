@@ -160,12 +160,14 @@ def fit_batch(
         remaining = fit_compiled(problem, runs, result, tol, max_iter)
     if remaining is None:
         remaining = np.arange(count)
-    size = block_size(problem, len(runs.free))
+    # Blocks of equal size: a short last block would pay the per-iteration cost of a full one
+    # for as long as its slowest run.
+    blocks = -(-len(remaining) // block_size(problem, len(runs.free)))
     # The budget covers the numpy engine, where the user's model runs (the compiled loop of a
     # formula calls no Python and cannot be interrupted anyway).
     with chunk_budget(problem.time_limit), suppress(ChunkTimeout):
-        for first in range(0, len(remaining), size):
-            run_block(problem, runs, remaining[first : first + size], result, method, tol, max_iter, history)
+        for block in np.array_split(remaining, blocks) if blocks else ():
+            run_block(problem, runs, block, result, method, tol, max_iter, history)
     return result
 
 

@@ -26,11 +26,13 @@ class CaseSelection:
         source: "design" or "map <x>/<y>".
         design: the start design the indices refer to.
         index: (M, F, K, CASES) design indices, −1 where none.
+        unit: design index -> (n,) unit coordinates of that start, for every index chosen.
     """
 
     source: str
     design: StartDesign
     index: np.ndarray
+    unit: dict[int, np.ndarray]
 
 
 def trace_cases(problem: Problem, selections: list[CaseSelection], methods: tuple[str, ...],
@@ -46,7 +48,7 @@ def trace_cases(problem: Problem, selections: list[CaseSelection], methods: tupl
                        for f, k, i in zip(factor, kind, selection.index[m][chosen])]
         if not picked:
             continue
-        starts = np.vstack([selection.design.starts(i, i + 1) for selection, _, _, i in picked])
+        starts = np.vstack([selection.design.values(selection.unit[i][None, :]) for selection, _, _, i in picked])
         alpha = np.array([step_factors[f] for _, f, _, _ in picked])
         fit = fit_batch(problem, starts, alpha, method=method, tol=tolerance, max_iter=max_iterations,
                         history=max_iterations + 1)

@@ -2,8 +2,10 @@
 
 ``ChunkWork`` is the function that ``parallel.map_chunks`` sends to the workers. It is a
 picklable object holding everything a worker needs (the problem, the design rule, the
-settings), and it maps a span ``(first, stop)`` of design points to a dict of small arrays,
-which is exactly what the chunk cache stores:
+settings), and it maps a task ``((first, stop), unit)``, a span of design points with their
+unit coordinates, to a dict of small arrays, which is exactly what the chunk cache stores. The
+coordinates come from the caller, so that no worker needs the design's generator (a Sobol'
+design imports scipy.stats, which takes about a second in every fresh process):
 
 - ``outcome`` (M, F, c) int8 engine outcome codes, ``iterations`` (M, F, c) int32;
 - ``label`` (M, F, c) int8: the row of the chunk's own solution catalogue that each converged
@@ -14,6 +16,8 @@ which is exactly what the chunk cache stores:
   curve, including runs whose solution is beyond the catalogue's limit;
 - ``case_start`` (M, F, K, CASES) int64: design indices of a few runs of each failure kind
   (−1 where fewer), so that some of them can later be rerun with their whole history;
+- ``unit`` (c, n): the unit coordinates of the starts, read back by the tallies and for the
+  example runs, so that a rerun from the cache needs no design generator either;
 - ``span`` (2,): first and stop, to check a stored chunk against the plan.
 
 M methods, F step factors, c = stop − first design points, K failure kinds.
@@ -38,7 +42,8 @@ CASES = 3
 
 @dataclass(frozen=True, eq=False)
 class ChunkWork:
-    """Fits of design points × step factors × methods; called with a span (first, stop).
+    """Fits of design points × step factors × methods; called with a task ((first, stop), unit):
+    a span of design points and their (stop − first, n) unit coordinates (``StartDesign.unit``).
 
     Compared and hashed by identity (``eq=False``): its fields hold arrays, and joblib's Dask
     backend hashes the function it sends.
@@ -52,9 +57,9 @@ class ChunkWork:
     max_iterations: int
     solution_tolerance: SolutionTolerance
 
-    def __call__(self, span: tuple[int, int]) -> dict[str, np.ndarray]:
-        first, stop = span
-        starts = self.design.starts(first, stop)
+    def __call__(self, task: tuple[tuple[int, int], np.ndarray]) -> dict[str, np.ndarray]:
+        (first, stop), unit = task
+        starts = self.design.values(unit)
         count, factors = len(starts), len(self.step_factors)
         shape = (len(self.methods), factors, count)
         outcome = np.empty(shape, dtype=np.int8)
@@ -85,6 +90,7 @@ class ChunkWork:
             "solution_count": catalogue.count,
             "converged_params": ends[converged],
             "case_start": _spread_cases(outcome, first),
+            "unit": unit,
             "span": np.array([first, stop], dtype=np.int64),
         }
 

@@ -182,10 +182,10 @@ class _Sweep:
         # This pass knows the best fit, so every converged run's end point meets the curve test.
         tally = DesignTally(len(request.methods), len(request.step_factors), request.max_iterations, len(merged),
                             best_unit, SameCurve(self.problem, merged.params[0]) if len(merged) else None)
-        for i, (first, stop) in enumerate(design_spans):
-            tally.add(design_store.load(i), mappings[i], self.design.unit(first, stop))
+        for i in range(len(design_spans)):
+            tally.add(design_store.load(i), mappings[i])
         case_shape = (len(request.methods), len(request.step_factors), len(FAILURE_KINDS))
-        maps, selections = [], [CaseSelection("design", self.design, tally.cases.pick(case_shape))]
+        maps, selections = [], [CaseSelection("design", self.design, tally.cases.pick(case_shape), tally.cases.unit)]
         offset = len(design_spans)
         for plane, store, chunks in planes:
             grid = MapGrid(len(request.methods), len(request.step_factors), request.resolution)
@@ -194,7 +194,7 @@ class _Sweep:
             offset += chunks
             maps.append(self._basin_map(plane, grid))
             source = f"map {maps[-1].x_name}/{maps[-1].y_name}"
-            selections.append(CaseSelection(source, plane, grid.cases.pick(case_shape)))
+            selections.append(CaseSelection(source, plane, grid.cases.pick(case_shape), grid.cases.unit))
         cases = trace_cases(self.problem, selections, request.methods, np.array(request.step_factors),
                             request.tolerance, request.max_iterations)
         return self._result(tally, merged, design_best, best_unit, maps, cases)
@@ -218,7 +218,9 @@ class _Sweep:
         work = ChunkWork(problem=self.problem, design=design, step_factors=request.step_factors,
                          methods=request.methods, tolerance=request.tolerance,
                          max_iterations=request.max_iterations, solution_tolerance=self.tolerance)
-        results: Iterator = map_chunks(work, (spans[i] for i in missing), self.plan)
+        # The coordinates are computed here, so that workers need no design generator.
+        tasks = ((spans[i], design.unit(*spans[i])) for i in missing)
+        results: Iterator = map_chunks(work, tasks, self.plan)
         for index, arrays in zip(missing, results):
             store.save(index, arrays)
             self._finished(store.stage, index, spans[index], reused=False)

@@ -151,7 +151,12 @@ class StartDesign:
 
     def starts(self, first: int, stop: int) -> np.ndarray:
         """(stop - first, n) starting parameters of points first .. stop - 1."""
-        values = self.space.from_unit(self.unit(first, stop))
+        return self.values(self.unit(first, stop))
+
+    def values(self, unit: np.ndarray) -> np.ndarray:
+        """(k, n) starting parameters of this design's points with the (k, n) unit coordinates
+        ``unit`` (from ``unit``; computed once, they can be passed around instead of recomputed)."""
+        values = self.space.from_unit(unit)
         if self.kind == "map":
             # The held parameters take the base values exactly, not after a round trip
             # through unit coordinates.

@@ -1,7 +1,7 @@
 """Streaming tallies over stored chunks: categories, iterations, solutions, distances, cases.
 
-A ``DesignTally`` takes one chunk at a time (its stored arrays, the unit coordinates of its
-starts and the map from its local solution labels to the merged catalogue) and adds it to
+A ``DesignTally`` takes one chunk at a time (its stored arrays, with the unit coordinates of
+its starts, and the map from its local solution labels to the merged catalogue) and adds it to
 fixed-size counters, so the memory of the summary does not grow with the number of starts.
 ``MapGrid`` fills the (small) per-run grids of one basin map, which are kept whole for the
 figures.
@@ -35,14 +35,21 @@ class CaseCandidates:
     """Example runs offered by each chunk; ``pick`` spreads the choice over the whole design.
 
     Each chunk offers at most CASES indices per (method, factor, kind), so the candidates
-    number CASES per chunk, a few integers, whatever the chunk size.
+    number CASES per chunk, a few integers, whatever the chunk size. The unit coordinates of the
+    offered starts are kept with them (``unit``: design index -> (n,)), so that the chosen runs
+    can be refitted without the design's generator.
     """
 
     def __init__(self) -> None:
         self.offered: list[np.ndarray] = []
+        self.unit: dict[int, np.ndarray] = {}
 
-    def add(self, found: np.ndarray) -> None:
+    def add(self, chunk: dict[str, np.ndarray]) -> None:
+        """Take a stored chunk's offer (its ``case_start``, ``unit`` and ``span``)."""
+        found, first = chunk["case_start"], int(chunk["span"][0])
         self.offered.append(found)
+        for index in np.unique(found[found >= 0]).tolist():
+            self.unit[index] = chunk["unit"][index - first]
 
     def pick(self, shape: tuple[int, ...]) -> np.ndarray:
         """(M, F, K, CASES) indices: CASES candidates evenly spaced in design order, −1 where fewer."""
@@ -92,9 +99,8 @@ class DesignTally:
         self.unit_high = np.full((DISTANCE_BINS, len(centre)), -np.inf)
         self.cases = CaseCandidates()
 
-    def add(self, chunk: dict[str, np.ndarray], mapping: np.ndarray, unit: np.ndarray) -> None:
-        """Count one chunk: its stored arrays, its local-to-merged solution map, and the
-        (c, n) unit coordinates of its starts."""
+    def add(self, chunk: dict[str, np.ndarray], mapping: np.ndarray) -> None:
+        """Count one chunk: its stored arrays and its local-to-merged solution map."""
         methods, factors, kinds = self.counts.shape
         solution = global_labels(chunk["label"], mapping)
         category = categorise(chunk["outcome"], solution).astype(np.int64)
@@ -116,6 +122,7 @@ class DesignTally:
         if self.same_curve is not None:
             on_curve[chunk["outcome"] == Outcome.CONVERGED] |= self.same_curve(chunk["converged_params"])
         self.curve_counts += on_curve.sum(axis=-1)
+        unit = chunk["unit"]
         distance, bins = start_distances(unit, self.centre)
         self.distance_total += np.bincount(bins, minlength=DISTANCE_BINS)
         np.maximum.at(self.distance_farthest, bins, distance)
@@ -124,7 +131,7 @@ class DesignTally:
         best = category == BEST
         where = (np.broadcast_to(cell, best.shape) * DISTANCE_BINS + bins)[best]
         self.distance_best += np.bincount(where, minlength=self.distance_best.size).reshape(self.distance_best.shape)
-        self.cases.add(chunk["case_start"])
+        self.cases.add(chunk)
 
 
 class MapGrid:
@@ -144,7 +151,7 @@ class MapGrid:
         self.solution[..., first:stop] = solution
         self.category[..., first:stop] = categorise(chunk["outcome"], solution)
         self.iterations[..., first:stop] = chunk["iterations"]
-        self.cases.add(chunk["case_start"])
+        self.cases.add(chunk)
 
     def grids(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """category, solution and iterations as (M, F, r, r), rows along the map's y axis."""
