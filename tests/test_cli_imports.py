@@ -45,3 +45,31 @@ def test_each_summary_in_the_overview_is_the_one_its_command_registers(name):
     choices = parser._subparsers._group_actions[0]._choices_actions
     registered = {action.dest: action.help for action in choices}
     assert registered[name] == cli.COMMANDS[name]
+
+
+def submodules_loaded_by(script: str, prefix: str) -> set[str]:
+    """Modules under ``prefix`` in sys.modules after ``script`` ran in a fresh interpreter."""
+    script += f"\nimport json, sys\nprint(json.dumps(sorted(n for n in sys.modules if n.startswith({prefix!r}))))\n"
+    done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, capture_output=True, text=True, check=True)
+    return set(json.loads(done.stdout.splitlines()[-1]))
+
+
+def test_a_cached_sobol_sweep_and_a_sweep_worker_import_no_design_generator(tmp_path):
+    # scipy.stats (whose qmc module makes the Sobol' points) takes about a second to import
+    # (python -X importtime): the points are made once, by the process that hands out the chunks.
+    sweep = ["sweep", "probe-cooling", "--starts", "64", "--resolution", "4", "--step-factors", "1",
+             "--jobs", "1", "-o", str(tmp_path), "--json"]
+    run = f"from audit.cli import main\ntry:\n    main({sweep!r})\nexcept SystemExit:\n    pass\n"
+    assert "scipy.stats" in submodules_loaded_by(run, "scipy.stats")          # the first run makes the points
+    assert not submodules_loaded_by(run, "scipy.stats")                        # the rerun reads them back
+    worker = ("from audit.inputs.scenario import load_scenario\nfrom audit.sweep.chunk import ChunkWork\n"
+              "from audit.sweep.solutions import SolutionTolerance\n"
+              "from audit.sweep.starts import make_design, search_space\nimport numpy as np\n"
+              "scenario = load_scenario('scenarios/probe-cooling')\n"
+              "design = make_design(search_space(scenario), 'sobol', 64, 1)\n"
+              "work = ChunkWork(problem=scenario.problem, design=design, step_factors=(1.0,), methods=('gn',),\n"
+              "                 tolerance=1e-8, max_iterations=50,\n"
+              "                 solution_tolerance=SolutionTolerance.for_problem(scenario.problem, 1e-8))\n"
+              "chunk = work(((0, 4), np.full((4, 3), 0.5)))\n"
+              "assert chunk['outcome'].shape == (1, 1, 4)\n")
+    assert not submodules_loaded_by(worker, "scipy.stats")
