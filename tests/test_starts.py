@@ -1,6 +1,8 @@
 """Start designs: grid, Sobol', Latin hypercube and map slices, made chunk by chunk."""
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 from scipy.stats import qmc
@@ -115,3 +117,16 @@ def test_a_parameter_without_range_is_an_error(write_scenario):
         """, model="def model(t, k):\n    return k * t\n", data="t,y\n1,2\n2,4\n3,6\n")
     with pytest.raises(InputError, match=r"\[parameters\] k: the sweep needs a range.*range = \[0.2, 20\]"):
         search_space(load_scenario(folder))
+
+
+def test_a_linear_range_beyond_the_power_limit_maps_without_overflow():
+    # A linear axis is a straight interpolation (reference: numpy.interp); only log axes take a
+    # power of ten, so 10**1000 must never be formed for the linear one (an overflow warning).
+    space = SearchSpace(names=("shift", "scale"), lower=np.array([0.0, 1.0]), upper=np.array([1000.0, 100.0]),
+                        log=np.array([False, True]))
+    unit = np.array([[0.0, 0.0], [0.5, 0.5], [1.0, 1.0]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        values = space.from_unit(unit)
+    assert np.array_equal(values[:, 0], np.interp(unit[:, 0], [0, 1], [0.0, 1000.0]))
+    assert np.allclose(values[:, 1], [1.0, 10.0, 100.0], rtol=1e-15)

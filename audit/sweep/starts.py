@@ -75,7 +75,9 @@ class SearchSpace:
         """Parameter values (..., n) of unit-cube coordinates (..., n)."""
         low, high = self._axis_values(self.lower), self._axis_values(self.upper)
         values = low + np.asarray(unit, dtype=float) * (high - low)
-        return np.where(self.log, 10.0 ** values, values)
+        # Powers only on the log axes: a linear range beyond about ±308 would overflow 10**value.
+        values[..., self.log] = 10.0 ** values[..., self.log]
+        return values
 
     def _axis_values(self, ends: np.ndarray) -> np.ndarray:
         return np.where(self.log, np.log10(np.where(self.log, ends, 1.0)), ends)
