@@ -74,6 +74,11 @@ REFUSED = [
     ("sqrt(-1) * t", "not a real number", True),
     ("10**10**10 * t", "constant power", True),
     ("1e999 * t", "double-precision range", True),
+    # Constant parts past the largest double, 1.8e308 (numpy.finfo(float).max): each would make
+    # every model value infinite or fail to convert.
+    ("A * exp(1e300) * t", "double-precision range", True),
+    ("A * 1e300 * 1e300 * t", "double-precision range", True),
+    ("A * sinh(800) * t", "double-precision range", True),
     ("", "empty", False),
     ("   ", "empty", False),
     ("t + " * 1500 + "t", "characters", False),

@@ -240,6 +240,12 @@ def to_sympy(tree: ast.Expression, text: str, symbols: dict, where: str):
         if exact_digits(value) > MAX_EXACT_DIGITS:
             raise formula_error(where, flat, f"this constant needs more than {MAX_EXACT_DIGITS} exact digits",
                                 *_span(flat, node))
+        # A constant part that overflows a double (exp(1e300); 1e300 * 1e300, which sympy folds
+        # into one coefficient of A * 1e300 * 1e300) would make every model value infinite, or
+        # fail as a Python integer numpy cannot convert.
+        constants = [value] if value.is_number else value.atoms(sympy.Number)
+        if any(not math.isfinite(float(abs(part).evalf(17))) for part in constants):
+            raise formula_error(where, flat, "constant outside the double-precision range", *_span(flat, node))
         return value
 
     def convert(node: ast.AST):
