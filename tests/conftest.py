@@ -3,10 +3,10 @@ from __future__ import annotations
 
 import itertools
 import os
-import textwrap
 from pathlib import Path
 
 import pytest
+from scenario_files import write_scenario_folder
 
 from audit.validation.reference import ReferenceProblem, read_reference
 
@@ -72,19 +72,12 @@ def nist_dir() -> Path:
 def write_scenario(tmp_path):
     """Write a scenario folder from TOML, model and CSV text; returns the folder.
 
-    ``write_scenario(toml, model=..., data=..., name="s")``; texts are dedented. Every call
-    gets a fresh folder, so one test can write several scenarios.
+    ``write_scenario(toml, model=..., data=..., name="s")``; texts are dedented (``tests/scenario_files.py``
+    builds them). Every call gets a fresh folder, so one test can write several scenarios.
     """
     written = itertools.count()
 
     def write(toml: str, model: str | None = None, data: str | None = None, name: str = "scenario") -> Path:
-        folder = tmp_path / f"{name}-{next(written)}"
-        folder.mkdir()
-        (folder / "scenario.toml").write_text(textwrap.dedent(toml))
-        if model is not None:
-            (folder / "model.py").write_text(textwrap.dedent(model))
-        if data is not None:
-            (folder / "data.csv").write_text(textwrap.dedent(data).lstrip())
-        return folder
+        return write_scenario_folder(tmp_path / f"{name}-{next(written)}", toml, model, data)
 
     return write

@@ -9,11 +9,11 @@ from __future__ import annotations
 
 import json
 import shutil
-import textwrap
 from pathlib import Path
 
 import numpy as np
 import pytest
+from scenario_files import csv_text, data_columns, scenario_toml, write_scenario_folder
 from scipy.optimize import least_squares
 
 from audit.cli import main
@@ -21,19 +21,11 @@ from audit.engine.best_fit import FROM_START, FROM_SWEEP, SweepReference, best_k
 from audit.inputs.scenario import load_scenario, solutions_fingerprint
 from audit.sweep.result import reference_from_json
 
-SCENARIO = """\
-    title = "sinusoid with a local optimum at the scenario's start"
-    [data]
-    file = "data.csv"
-    x = "t"
-    y = "y"
-    [model]
-    expression = "amp*sin(omega*t + phase)"
-    [parameters]
-    amp = { start = 1.0, range = [0.1, 5.0] }
-    omega = { start = 1.0, range = [0.2, 4.0] }
-    phase = { start = 0.0, range = [-3.0, 3.0] }
-"""
+SCENARIO = scenario_toml(title="sinusoid with a local optimum at the scenario's start", data=data_columns("t", "y"),
+                         model={"expression": "amp*sin(omega*t + phase)"},
+                         parameters={"amp": {"start": 1.0, "range": [0.1, 5.0]},
+                                     "omega": {"start": 1.0, "range": [0.2, 4.0]},
+                                     "phase": {"start": 0.0, "range": [-3.0, 3.0]}})
 #: Evenly spaced and exact in binary, so the aliases omega + 8π·k give the same SSR to rounding.
 TIMES = 0.25 * np.arange(80)
 NEAR_OPTIMUM = [2.0, 1.7, 0.4]
@@ -41,11 +33,9 @@ NEAR_OPTIMUM = [2.0, 1.7, 0.4]
 
 def write_sinusoid(folder: Path, omega: float, seed: int) -> Path:
     """A scenario folder with data 2·sin(omega·t + 0.4) plus seeded noise of sd 0.35."""
-    folder.mkdir(parents=True)
     y = 2.0 * np.sin(omega * TIMES + 0.4) + np.random.default_rng(seed).normal(0.0, 0.35, TIMES.size)
-    (folder / "scenario.toml").write_text(textwrap.dedent(SCENARIO))
-    (folder / "data.csv").write_text("t,y\n" + "".join(f"{float(t)!r},{float(v)!r}\n" for t, v in zip(TIMES, y)))
-    return folder
+    # An empty format spec writes each double's shortest round-tripping digits.
+    return write_scenario_folder(folder, SCENARIO, data=csv_text("t,y", TIMES, y, formats=""))
 
 
 def scipy_fit(folder: Path, start) -> tuple[np.ndarray, float]:

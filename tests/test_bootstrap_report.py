@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from scenario_files import csv_text, data_columns, scenario_toml
 from scipy.optimize import least_squares
 
 from audit.cli import main
@@ -132,17 +133,10 @@ def test_exit_status_1_when_a_flag_is_raised(write_scenario, capsys, tmp_path):
     x = np.linspace(0.5, 6.0, 25)
     y = 2.5 * np.exp(-x / 7.0) + rng.normal(0.0, 0.6, x.size)
     folder = write_scenario(
-        """
-        [data]
-        file = "data.csv"
-        x = "x"
-        y = "y"
-        [model]
-        expression = "amplitude * exp(-x / tau)"
-        [parameters]
-        amplitude = { start = 2.5, range = [0.1, 10.0] }
-        tau = { start = 7.0, range = [0.5, 100.0] }
-        """, data="x,y\n" + "".join(f"{a:.17g},{b:.17g}\n" for a, b in zip(x, y)))
+        scenario_toml(data=data_columns("x", "y"), model={"expression": "amplitude * exp(-x / tau)"},
+                      parameters={"amplitude": {"start": 2.5, "range": [0.1, 10.0]},
+                                  "tau": {"start": 7.0, "range": [0.5, 100.0]}}),
+        data=csv_text("x,y", x, y))
     status = main(["bootstrap", str(folder), "--samples", SAMPLES, "--jobs", "1", "-o", str(tmp_path), "--json"])
     report = json.loads(capsys.readouterr().out)
     assert status == 1 and ("tau", "bound") in {(flag["parameter"], flag["kind"]) for flag in report["flags"]}

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scenario_files import data_columns, scenario_toml
 from scipy.optimize import least_squares
 
 from audit.inputs.scenario import load_scenario
@@ -13,23 +14,9 @@ from audit.sweep.run import SweepRequest, run_sweep
 
 # y = a·exp(-b·x) sampled at a = 2, b = 0.5 (rounded to 4 digits); only builds the problem.
 DATA = "x,y\n0,2.0\n1,1.2131\n2,0.7358\n3,0.4463\n4,0.2707\n5,0.1642\n6,0.0996\n"
-TOML = """
-    [data]
-    file = "data.csv"
-    x = "x"
-    y = "y"
-    [model]
-    file = "model.py"
-    [parameters]
-    a = { start = 1.0, range = [0.5, 4.0] }
-    b = { start = 0.3, range = [0.05, 2.0] }
-    [solver]
-    step_factors = [1.0, 0.5]
-    [sweep]
-    design = "grid"
-    points = 64
-    resolution = 6
-    """
+TOML = scenario_toml(data=data_columns("x", "y"),
+                     parameters={"a": {"start": 1.0, "range": [0.5, 4.0]}, "b": {"start": 0.3, "range": [0.05, 2.0]}},
+                     solver={"step_factors": [1.0, 0.5]}, sweep={"design": "grid", "points": 64, "resolution": 6})
 MODEL = "from helper import curve\n\n\ndef model(x, a, b):\n    return curve(x, a, b)\n"
 EXPONENTIAL = "import numpy as np\n\n\ndef curve(x, a, b):\n    return a * np.exp(-b * x)\n"
 RATIONAL = "def curve(x, a, b):\n    return a / (1 + b * x)\n"

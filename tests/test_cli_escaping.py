@@ -4,6 +4,7 @@ command that prints tables or draws figures."""
 from __future__ import annotations
 
 import pytest
+from scenario_files import MODEL_FILE, data_columns, scenario_toml, write_scenario_folder
 
 from audit.cli import main
 
@@ -22,36 +23,18 @@ def jacobian(t, amplitude, rate):
 X_COLUMN = "$\\frac{a$ [/]"
 Y_COLUMN = "[red]signal[/red]"
 DATA = (f'"{X_COLUMN}",{Y_COLUMN}\n0,5.0\n1,3.1\n2,1.8\n3,1.1\n4,0.7\n5,0.45\n6,0.26\n7,0.17\n')
-TOML = """
-title = "[/] decay [link=http://x]y[/link] \\u001b[31m"
-[data]
-file = "data.csv"
-x = '{x}'
-y = '{y}'
-[model]
-file = "model.py"
-jacobian = "jacobian"
-[parameters]
-amplitude = {{ start = 4.0, range = [0.1, 10.0] }}
-rate = {{ start = 0.5, range = [0.01, 5.0] }}
-[sweep]
-design = "grid"
-points = 16
-resolution = 4
-[bootstrap]
-samples = 20
-[identifiability]
-profile_points = 7
-"""
+TOML = scenario_toml(
+    title="[/] decay [link=http://x]y[/link] \\u001b[31m",
+    # Doubled, the backslash of the mathtext reaches the column name as one (a TOML escape).
+    data=data_columns(X_COLUMN.replace("\\", "\\\\"), Y_COLUMN),
+    model={**MODEL_FILE, "jacobian": "jacobian"},
+    sweep={"design": "grid", "points": 16, "resolution": 4}, bootstrap={"samples": 20},
+    identifiability={"profile_points": 7})
 
 
 @pytest.fixture(scope="module")
 def hostile_folder(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("hostile")
-    (folder / "model.py").write_text(MODEL)
-    (folder / "data.csv").write_text(DATA)
-    (folder / "scenario.toml").write_text(TOML.format(x=X_COLUMN, y=Y_COLUMN))
-    return folder
+    return write_scenario_folder(tmp_path_factory.mktemp("hostile"), TOML, MODEL, DATA)
 
 
 @pytest.mark.parametrize("command", [["sweep"], ["fit"], ["bootstrap"], ["identify"], ["derivatives"],

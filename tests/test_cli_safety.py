@@ -6,33 +6,15 @@ import fcntl
 import textwrap
 
 import pytest
+from scenario_files import DECAY_DATA, DECAY_MODEL, scenario_toml
 
 from audit.cli import main
 from audit.cli import sweep as sweep_command
 
-MODEL = """
-import numpy as np
 
-def model(t, amplitude, rate):
-    return amplitude * np.exp(-rate * t)
-"""
-DATA = "t,signal\n0,5.0\n1,3.1\n2,1.8\n3,1.1\n4,0.7\n5,0.4\n"
-TOML = """
-title = "{title}"
-[data]
-file = "data.csv"
-x = "t"
-y = "signal"
-[model]
-file = "model.py"
-[parameters]
-amplitude = {{ start = 4.0, range = [0.1, 10.0] }}
-rate = {{ start = 0.5, range = [0.01, 5.0] }}
-[sweep]
-design = "grid"
-points = 16
-resolution = 4
-"""
+def titled_toml(title: str) -> str:
+    """The decay scenario with a small grid sweep; ``title`` goes into the TOML string as written."""
+    return scenario_toml(title=title, sweep={"design": "grid", "points": 16, "resolution": 4})
 
 
 def run(capsys, *argv: str) -> tuple[int, str, str]:
@@ -43,7 +25,7 @@ def run(capsys, *argv: str) -> tuple[int, str, str]:
 
 @pytest.fixture
 def scenario(write_scenario):
-    return write_scenario(TOML.format(title="decay"), model=MODEL, data=DATA)
+    return write_scenario(titled_toml("decay"), model=DECAY_MODEL, data=DECAY_DATA)
 
 
 @pytest.fixture
@@ -95,7 +77,7 @@ def test_an_unexpected_error_exits_3_with_one_line_and_a_hint(capsys, scenario, 
 
 @pytest.mark.parametrize("title", ["[/]", "[red]alarm[/red]", "[link=http://x]y[/link]", "\\u001b[31mred", ":x: bad"])
 def test_a_hostile_title_is_shown_as_written_without_markup_or_control_codes(capsys, write_scenario, title):
-    folder = write_scenario(TOML.format(title=title), model=MODEL, data=DATA)
+    folder = write_scenario(titled_toml(title), model=DECAY_MODEL, data=DECAY_DATA)
     status, out, err = run(capsys, "check", str(folder))
     shown = textwrap.dedent(title).replace("\\u001b", "")
     assert status == 0, err

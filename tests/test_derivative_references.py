@@ -6,6 +6,7 @@ from pathlib import Path
 
 import numdifftools
 import numpy as np
+from scenario_files import LOG_RATE_PARAMETERS, scenario_toml
 
 from audit.derivatives.check import audit_derivatives
 from audit.inputs.scenario import load_scenario
@@ -39,18 +40,9 @@ def test_bundled_scenario_has_no_false_alarm_and_its_references_match_numdifftoo
 def test_a_formula_model_is_cross_checked_against_numdifftools(write_scenario):
     # The formula's derivatives come from computer algebra: nothing hand-made, but they are
     # still compared with numdifftools (the outside reference) and must agree.
-    folder = write_scenario("""
-        [data]
-        file = "data.csv"
-        x = "t"
-        y = "signal"
-        [model]
-        expression = "amplitude * exp(-rate * t) + offset"
-        [parameters]
-        amplitude = { start = 4.0, range = [0.1, 10.0] }
-        rate = { start = 0.5, range = [0.01, 5.0], scale = "log" }
-        offset = { start = 1.0, range = [-2.0, 2.0] }
-        """, data="""
+    toml = scenario_toml(model={"expression": "amplitude * exp(-rate * t) + offset"},
+                         parameters={**LOG_RATE_PARAMETERS, "offset": {"start": 1.0, "range": [-2.0, 2.0]}})
+    folder = write_scenario(toml, data="""
         t,signal
         0,5.0
         1,3.4

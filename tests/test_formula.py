@@ -8,6 +8,7 @@ import numdifftools as nd
 import numpy as np
 import pytest
 from conftest import nist_folder
+from scenario_files import MODEL_FILE, csv_text, data_columns, scenario_toml
 
 from audit.cli import main
 from audit.engine.batch import fit_batch
@@ -16,7 +17,7 @@ from audit.inputs.formula import check_formula, compile_formula
 from audit.inputs.formula_syntax import FUNCTIONS
 from audit.inputs.scenario import load_scenario
 from audit.parallel.plan import ParallelPlan, map_chunks
-from audit.validation.reference import log_relative_error, nist_formula
+from audit.validation.reference import ReferenceProblem, log_relative_error, nist_formula
 
 NAMES = ("A", "k", "c")
 # Without the files one case still runs, so that the `nist` fixture fails it under CI (else skips).
@@ -266,29 +267,18 @@ def test_derivative_texts_are_the_exact_partial_derivatives():
 
 
 # --------------------------------------------------------------------------- scenarios
-SCENARIO = """
-    title = "formula scenario"
-    [data]
-    file = "data.csv"
-    x = {x}
-    y = "{y}"
-    [model]
-    expression = "{expression}"
-    [parameters]
-    {parameters}
-    """
-
-
-def _csv(header, columns):
-    rows = [",".join(header)] + [",".join(f"{float(value)!r}" for value in row) for row in zip(*columns)]
-    return "\n".join(rows) + "\n"
+def formula_toml(reference: ReferenceProblem, x: str | list[str], y: str, expression: str) -> str:
+    """A scenario fitting ``expression`` from the NIST problem's second start, no ranges."""
+    starts = {name: {"start": float(value)} for name, value in zip(reference.names, reference.start2)}
+    return scenario_toml(title="formula scenario", data=data_columns(x, y), model={"expression": expression},
+                         parameters=starts)
 
 
 def test_scenario_expression_fits_misra1a_to_the_certified_values(nist, write_scenario):
     reference = nist("Misra1a")
-    parameters = "\n".join(f"{name} = {{ start = {float(value)!r} }}" for name, value in zip(reference.names, reference.start2))
-    folder = write_scenario(SCENARIO.format(x='"x"', y="y", expression="b1*(1-exp(-b2*x))", parameters=parameters),
-                            data=_csv(["x", "y"], [reference.x, reference.y]))
+    # An empty format spec writes each double's shortest round-tripping digits.
+    folder = write_scenario(formula_toml(reference, "x", "y", "b1*(1-exp(-b2*x))"),
+                            data=csv_text("x,y", reference.x, reference.y, formats=""))
     scenario = load_scenario(folder)
     assert scenario.problem.formula == "b1*(1-exp(-b2*x))"
     assert scenario.model_path is None and scenario.problem.has_jacobian
@@ -302,11 +292,9 @@ def test_scenario_expression_fits_misra1a_to_the_certified_values(nist, write_sc
 
 def test_scenario_expression_with_two_predictors_fits_nelson(nist, write_scenario):
     reference = nist("Nelson")
-    parameters = "\n".join(f"{name} = {{ start = {float(value)!r} }}" for name, value in zip(reference.names, reference.start2))
     # Nelson's certified fit is of log(y); the data file holds log(y) as its response column.
-    folder = write_scenario(
-        SCENARIO.format(x='["x1", "x2"]', y="log_y", expression="b1 - b2*x1 * exp(-b3*x2)", parameters=parameters),
-        data=_csv(["x1", "x2", "log_y"], [reference.x[0], reference.x[1], np.log(reference.y)]))
+    folder = write_scenario(formula_toml(reference, ["x1", "x2"], "log_y", "b1 - b2*x1 * exp(-b3*x2)"),
+                            data=csv_text("x1,x2,log_y", *reference.x, np.log(reference.y), formats=""))
     scenario = load_scenario(folder)
     fit = fit_batch(scenario.problem, scenario.start[None, :], method="lm", tol=1e-10, max_iter=500)
     assert fit.converged[0]
@@ -350,25 +338,17 @@ def test_stated_formula_of_a_python_model_is_checked_at_load(write_scenario):
         def model(t, A, k, c):
             return A * np.exp(-k * t) + c
         """
-    toml = """
-        [data]
-        file = "data.csv"
-        x = "t"
-        y = "y"
-        [model]
-        file = "model.py"
-        formula = "{formula}"
-        [parameters]
-        A = 2.0
-        k = 0.5
-        c = 1.0
-        """
-    good = write_scenario(toml.format(formula="A * exp(-k * t) + c"), model=model, data=DATA, name="good")
+
+    def toml(formula: str) -> str:
+        return scenario_toml(data=data_columns("t", "y"), model={**MODEL_FILE, "formula": formula},
+                             parameters={"A": 2.0, "k": 0.5, "c": 1.0})
+
+    good = write_scenario(toml("A * exp(-k * t) + c"), model=model, data=DATA, name="good")
     scenario = load_scenario(good)
     compiled = compile_formula(scenario.problem.formula, scenario.names, scenario.x_names)
     t = scenario.problem.x
     columns = [np.array([[value]]) for value in scenario.start]
     np.testing.assert_allclose(compiled.model(t, *columns), scenario.problem.model(t, *columns), rtol=1e-14)
-    bad = write_scenario(toml.format(formula="A * exp(-k * time) + c"), model=model, data=DATA, name="bad")
+    bad = write_scenario(toml("A * exp(-k * time) + c"), model=model, data=DATA, name="bad")
     with pytest.raises(InputError, match=r"\[model\] formula: unknown name 'time'"):
         load_scenario(bad)

@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from scenario_files import csv_text, data_columns, scenario_toml
 from scipy import stats
 from scipy.optimize import brentq, least_squares
 
@@ -316,24 +317,12 @@ def test_identify_command_writes_json_and_figures(tmp_path, capsys):
 
 
 def test_identify_command_flags_a_product_model_and_rejects_bad_points(write_scenario, capsys, tmp_path):
+    x = np.arange(1, 13)
     folder = write_scenario(
-        """
-        [data]
-        file = "data.csv"
-        x = "x"
-        y = "y"
-        [model]
-        file = "model.py"
-        [parameters]
-        a = { start = 1.0, range = [0.1, 10.0] }
-        b = { start = 1.0, range = [0.1, 10.0] }
-        """,
-        model="""
-        def model(x, a, b):
-            return a * b * x
-        """,
-        data="x,y\n" + "".join(f"{x},{2.0 * x + 0.1 * (-1) ** x}\n" for x in range(1, 13)),
-    )
+        scenario_toml(data=data_columns("x", "y"), parameters={"a": {"start": 1.0, "range": [0.1, 10.0]},
+                                                                "b": {"start": 1.0, "range": [0.1, 10.0]}}),
+        model="def model(x, a, b):\n    return a * b * x\n",
+        data=csv_text("x,y", x, 2.0 * x + 0.1 * (-1.0) ** x, formats=""))
     assert main(["identify", str(folder), "--jobs", "1", "-o", str(tmp_path)]) == 1
     shown = capsys.readouterr().out
     assert "structurally non-identifiable" in shown

@@ -4,25 +4,20 @@ non-identifiable, with its correlation printed to enough digits to tell it from 
 from __future__ import annotations
 
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
+from scenario_files import csv_text, data_columns, scenario_toml
 from scipy.optimize import least_squares
 
 from audit.cli import main
 
-TOML = """
-title = "{title}"
-[data]
-file = "data.csv"
-x = "x"
-y = "y"
-[model]
-file = "model.py"
-[parameters]
-{first} = {{ start = {start1}, range = [{low1}, {high1}] }}
-{second} = {{ start = {start2}, range = [{low2}, {high2}] }}
-"""
+
+def folder_of(write_scenario, title: str, parameters: dict, model: str, x: np.ndarray, y: np.ndarray) -> Path:
+    """A scenario folder fitting ``model`` (a function of x and ``parameters``) to the columns x, y."""
+    return write_scenario(scenario_toml(title=title, data=data_columns("x", "y"), parameters=parameters),
+                          model=model, data=csv_text("x,y", x, y))
 
 
 def identify(capsys, folder, tmp_path) -> tuple[int, str]:
@@ -33,10 +28,9 @@ def identify(capsys, folder, tmp_path) -> tuple[int, str]:
 def test_a_product_of_parameters_has_no_correlations_to_list(capsys, write_scenario, tmp_path):
     x = np.linspace(0.5, 5.0, 12)
     y = 6.0 * x + np.random.default_rng(1).normal(0.0, 0.1, x.size)
-    folder = write_scenario(TOML.format(title="product", first="a", second="b", start1=1.5, low1=0.5, high1=10,
-                                        start2=2.5, low2=0.5, high2=10),
-                            model="def model(x, a, b):\n    return a * b * x\n",
-                            data="x,y\n" + "".join(f"{u:.17g},{v:.17g}\n" for u, v in zip(x, y)))
+    folder = folder_of(write_scenario, "product", {"a": {"start": 1.5, "range": [0.5, 10]},
+                                                   "b": {"start": 2.5, "range": [0.5, 10]}},
+                       "def model(x, a, b):\n    return a * b * x\n", x, y)
     status, text = identify(capsys, folder, tmp_path)
     # Hand derivation: ∂f/∂a = b·x and ∂f/∂b = a·x are proportional, so the Jacobian has rank 1
     # (numpy.linalg.matrix_rank) and JᵀJ has no inverse: the correlations are undefined.
@@ -52,10 +46,9 @@ def test_a_saturation_fit_correlated_to_within_a_thousandth_is_called_practicall
     # (vmax/k)·x, so vmax and k are determined almost only through their ratio.
     x = np.linspace(0.1, 1.0, 15)
     y = 40.0 * x / (20.0 + x) + np.random.default_rng(3).normal(0.0, 0.0005, x.size)
-    folder = write_scenario(TOML.format(title="saturation", first="vmax", second="k", start1=30.0, low1=1,
-                                        high1=1000, start2=15.0, low2=1, high2=500),
-                            model="def model(x, vmax, k):\n    return vmax * x / (k + x)\n",
-                            data="x,y\n" + "".join(f"{u:.17g},{v:.17g}\n" for u, v in zip(x, y)))
+    folder = folder_of(write_scenario, "saturation", {"vmax": {"start": 30.0, "range": [1, 1000]},
+                                                      "k": {"start": 15.0, "range": [1, 500]}},
+                       "def model(x, vmax, k):\n    return vmax * x / (k + x)\n", x, y)
     status, text = identify(capsys, folder, tmp_path)
     # Reference: scipy.optimize.least_squares' fit and its Jacobian; correlation from
     # numpy.linalg.inv(JᵀJ) (the linearised covariance up to the factor s²).

@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from scenario_files import DECAY_PARAMETERS, csv_text, scenario_toml
 from test_determinism import numbers
 
 from audit.inputs.scenario import load_scenario
@@ -27,23 +28,8 @@ from audit.uncertainty.bootstrap import bootstrap_scenario
 ROOT = Path(__file__).resolve().parents[1]
 #: Refits per bootstrap chunk for this scenario (bootstrap.MAX_CHUNK; 20 observations are few).
 CHUNK = 1000
-TOML = """
-[data]
-file = "data.csv"
-x = "t"
-y = "signal"
-[model]
-file = "model.py"
-[parameters]
-amplitude = { start = 4.0, range = [0.1, 20.0] }
-rate = { start = 0.5, range = [0.01, 5.0] }
-[sweep]
-points = 64
-resolution = 5
-[bootstrap]
-samples = 3000
-seed = 1
-"""
+TOML = scenario_toml(parameters={**DECAY_PARAMETERS, "amplitude": {"start": 4.0, "range": [0.1, 20.0]}},
+                     sweep={"points": 64, "resolution": 5}, bootstrap={"samples": 3000, "seed": 1})
 #: Calls with a bootstrap chunk's thousand runs wait SLOW_MODEL_SECONDS, so that the interrupted
 #: process is still inside the bootstrap when it is stopped; the numbers never depend on it, and
 #: the runs that resume and compare leave it unset (no wait).
@@ -66,16 +52,22 @@ def scenario_folder(write_scenario, monkeypatch):
     monkeypatch.delenv("SLOW_MODEL_SECONDS", raising=False)
     t = np.linspace(0.0, 5.0, 20)
     signal_values = 5.0 * np.exp(-0.47 * t) + np.random.default_rng(7).normal(0.0, 0.1, t.size)
-    data = "t,signal\n" + "".join(f"{a:.4f},{b:.6f}\n" for a, b in zip(t, signal_values))
-    return write_scenario(TOML, model=MODEL, data=data)
+    return write_scenario(TOML, model=MODEL, data=csv_text("t,signal", t, signal_values, formats=(".4f", ".6f")))
+
+
+def started_with_slow_model(arguments: list[str], stderr: int) -> subprocess.Popen:
+    """Start ``fitaudit ARGUMENTS`` from this tree in a new process whose model waits
+    SLOW_MODEL_SECONDS = 0.05 s per bootstrap-sized call; its output is dropped, ``stderr`` is
+    where its errors go (``subprocess.PIPE`` to read them as text)."""
+    environment = {**os.environ, "SLOW_MODEL_SECONDS": "0.05", "PYTHONPATH": str(ROOT)}
+    return subprocess.Popen([sys.executable, "-m", "audit", *arguments], cwd=ROOT, env=environment,
+                            stdout=subprocess.DEVNULL, stderr=stderr, text=True)
 
 
 def stopped_after_first_chunk(command: list[str], out: Path, stop: signal.Signals) -> int:
     """Run ``fitaudit COMMAND -o OUT --jobs 1`` in a new process with a slow model, send it
     ``stop`` as soon as the first bootstrap chunk file exists, and return its exit status."""
-    environment = {**os.environ, "SLOW_MODEL_SECONDS": "0.05", "PYTHONPATH": str(ROOT)}
-    process = subprocess.Popen([sys.executable, "-m", "audit", *command, "-o", str(out), "--jobs", "1"], cwd=ROOT,
-                               env=environment, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    process = started_with_slow_model([*command, "-o", str(out), "--jobs", "1"], stderr=subprocess.PIPE)
     try:
         waited = 0.0
         while not list(out.glob("cache/bootstrap-*/bootstrap-000000.npz")):
@@ -176,10 +168,8 @@ def descendants(pid: int) -> dict[int, str]:
 def test_the_workers_of_a_killed_sweep_end_on_their_own(scenario_folder, tmp_path):
     # Without a check of their own, joblib's workers ran on for at least 400 s after their
     # parent was killed with SIGKILL (tried by hand); they now notice within about a second.
-    environment = {**os.environ, "SLOW_MODEL_SECONDS": "0.05", "PYTHONPATH": str(ROOT)}
-    process = subprocess.Popen([sys.executable, "-m", "audit", "sweep", str(scenario_folder), "--starts", "100000",
-                                "--jobs", "2", "-o", str(tmp_path / "out")], cwd=ROOT, env=environment,
-                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    process = started_with_slow_model(["sweep", str(scenario_folder), "--starts", "100000", "--jobs", "2",
+                                       "-o", str(tmp_path / "out")], stderr=subprocess.DEVNULL)
     helpers: dict[int, str] = {}
     try:
         waited, workers = 0.0, {}

@@ -11,6 +11,7 @@ import time
 
 import numpy as np
 import pytest
+from scenario_files import DECAY_DATA, DECAY_PARAMETERS, MODEL_FILE, scenario_toml
 from scipy.optimize import least_squares
 
 from audit import InputError
@@ -28,19 +29,8 @@ from audit.uncertainty.bootstrap import run_bootstrap
 from audit.uncertainty.refits import chunk_generator
 from audit.uncertainty.resampling import build_scheme
 
-DATA = "t,signal\n0,5.0\n1,3.1\n2,1.8\n3,1.1\n4,0.7\n5,0.4\n"
-TOML = """
-[data]
-file = "data.csv"
-x = "t"
-y = "signal"
-[model]
-file = "model.py"
-time_limit = 1.0
-[parameters]
-amplitude = { start = 4.0, range = [0.1, 60.0] }
-rate = { start = 0.5, range = [0.01, 5.0] }
-"""
+TOML = scenario_toml(model={**MODEL_FILE, "time_limit": 1.0},
+                     parameters={**DECAY_PARAMETERS, "amplitude": {"start": 4.0, "range": [0.1, 60.0]}})
 #: Sleeps far longer than any limit here whenever a run's amplitude is above 59: without the
 #: limit a test would wait a minute and then fail on its outcomes.
 SLEEPING = """
@@ -92,7 +82,7 @@ def test_a_chunk_out_of_time_times_out_its_runs_still_fitting_and_keeps_those_th
 
 
 def test_a_call_that_never_returns_ends_at_the_chunk_deadline(write_scenario):
-    scenario = load_scenario(write_scenario(TOML, model=HANGING, data=DATA))
+    scenario = load_scenario(write_scenario(TOML, model=HANGING, data=DECAY_DATA))
     fits = fit_batch(scenario.problem, [[4.0, 0.5], [60.0, 0.5]], 1.0, tol=1e-10, max_iter=100)
     # Both runs were in the call that hung: neither had ended.
     assert list(fits.outcome) == [Outcome.TIMED_OUT] * 2
@@ -115,7 +105,7 @@ def test_outside_a_chunk_a_call_that_never_returns_marks_only_its_runs(write_sce
     # A model call that is not part of a fit (a basin test, a band) gets the limit for itself,
     # and the runs that hang are found by splitting the batch.
     scenario = load_scenario(write_scenario(TOML.replace("time_limit = 1.0", "time_limit = 0.2"),
-                                            model=HANGING, data=DATA))
+                                            model=HANGING, data=DECAY_DATA))
     values = scenario.problem.predict(np.array([[4.0, 0.5], [60.0, 0.5], [5.0, 0.4]]))
     assert np.isnan(values[1]).all() and np.isfinite(values[[0, 2]]).all()
     np.testing.assert_allclose(values[0], 4.0 * np.exp(-0.5 * scenario.problem.x), rtol=1e-15)
@@ -123,7 +113,7 @@ def test_outside_a_chunk_a_call_that_never_returns_marks_only_its_runs(write_sce
 
 def test_a_model_hanging_at_the_start_is_refused_naming_the_file_and_key(write_scenario):
     folder = write_scenario(TOML.replace("start = 4.0", "start = 60.0").replace("60.0]", "100.0]"),
-                            model=HANGING, data=DATA)
+                            model=HANGING, data=DECAY_DATA)
     with pytest.raises(InputError) as caught:
         load_scenario(folder)
     message = str(caught.value)
@@ -132,7 +122,7 @@ def test_a_model_hanging_at_the_start_is_refused_naming_the_file_and_key(write_s
 
 @pytest.mark.parametrize("value", ["0", "-1", "inf", "nan", "\"long\""])
 def test_a_time_limit_that_is_no_positive_number_is_refused(write_scenario, value):
-    folder = write_scenario(TOML.replace("time_limit = 1.0", f"time_limit = {value}"), model=HANGING, data=DATA)
+    folder = write_scenario(TOML.replace("time_limit = 1.0", f"time_limit = {value}"), model=HANGING, data=DECAY_DATA)
     with pytest.raises(InputError, match=r"\[model\] time_limit"):
         load_scenario(folder)
 
@@ -154,7 +144,7 @@ def test_a_sweep_times_out_the_chunk_that_sleeps_and_the_others_fit(write_scenar
     # sleeps. No run from the other rows goes past amplitude 59 (the amplitude of this decay is
     # about 5). The maps' one chunk spans amplitude to 60 as well.
     monkeypatch.setattr(sweep_module, "CHUNK_RUNS", 256)
-    scenario = load_scenario(write_scenario(SWEEP, model=SLEEPING, data=DATA))
+    scenario = load_scenario(write_scenario(SWEEP, model=SLEEPING, data=DECAY_DATA))
     request = SweepRequest.from_scenario(scenario)
     result = run_sweep(scenario, request, ParallelPlan(jobs=jobs), tmp_path / "out")
     payload = result.to_dict()
@@ -174,7 +164,7 @@ def test_a_sweep_times_out_the_chunk_that_sleeps_and_the_others_fit(write_scenar
     np.testing.assert_allclose(best, reference, rtol=1e-6)
     # The chunks that did not sleep are exactly those of a model that never sleeps.
     quick = load_scenario(write_scenario(SWEEP.replace("time_limit = 1.0\n", ""), model=SLEEPING.replace(
-        "time.sleep(60)", "pass"), data=DATA))
+        "time.sleep(60)", "pass"), data=DECAY_DATA))
     unlimited = run_sweep(quick, request, ParallelPlan(jobs=1), tmp_path / "unlimited")
     for index in range(3):
         ours, theirs = store.load(index), ChunkStore(unlimited.cache, "design").load(index)

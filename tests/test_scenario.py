@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scenario_files import LOG_RATE_PARAMETERS, MODEL_FILE, data_columns, scenario_toml
 
 from audit import InputError
 from audit.inputs.scenario import load_scenario
@@ -27,21 +28,10 @@ t,signal,sd
 4,1.4,0.2
 """
 
-TOML = """
-title = "decay"
-[data]
-file = "data.csv"
-x = "t"
-y = "signal"
-sigma = "sd"
-[model]
-file = "model.py"
-jacobian = "jacobian"
-[parameters]
-amplitude = { start = 4.0, range = [0.1, 10.0] }
-rate = { start = 0.5, range = [0.01, 5.0], scale = "log" }
-offset = 1.0
-"""
+#: The tests below edit this text (a key renamed, a line added or dropped): one key a line.
+TOML = scenario_toml(title="decay", data=data_columns("t", "signal", sigma="sd"),
+                     model={**MODEL_FILE, "jacobian": "jacobian"},
+                     parameters={**LOG_RATE_PARAMETERS, "offset": 1.0})
 
 
 def test_good_scenario_builds_a_weighted_problem(write_scenario):

@@ -5,6 +5,7 @@ import warnings
 
 import numpy as np
 import pytest
+from scenario_files import data_columns, scenario_toml
 from scipy.stats import qmc
 
 from audit.errors import InputError
@@ -105,16 +106,8 @@ def test_map_needs_two_distinct_parameters():
 
 
 def test_a_parameter_without_range_is_an_error(write_scenario):
-    folder = write_scenario("""
-        [data]
-        file = "data.csv"
-        x = "t"
-        y = "y"
-        [model]
-        file = "model.py"
-        [parameters]
-        k = { start = 2.0 }
-        """, model="def model(t, k):\n    return k * t\n", data="t,y\n1,2\n2,4\n3,6\n")
+    folder = write_scenario(scenario_toml(data=data_columns("t", "y"), parameters={"k": {"start": 2.0}}),
+                            model="def model(t, k):\n    return k * t\n", data="t,y\n1,2\n2,4\n3,6\n")
     with pytest.raises(InputError, match=r"\[parameters\] k: the sweep needs a range.*range = \[0.2, 20\]"):
         search_space(load_scenario(folder))
 

@@ -12,6 +12,7 @@ import json
 import numpy as np
 import pytest
 import twin_optima as twin
+from scenario_files import csv_text, scenario_toml
 from scipy.optimize import least_squares
 
 from audit.cli import main
@@ -83,27 +84,12 @@ def test_exchanged_terms_of_two_decays_are_one_curve_counted_together(write_scen
     # of undetermined parameters. Reference: scipy.optimize.least_squares from the scenario's start.
     t = np.linspace(0, 10, 120)
     signal = 5.0 * np.exp(-1.3 * t) + 2.0 * np.exp(-0.2 * t) + 0.01 * np.cos(11 * t)
-    data = "t,signal\n" + "".join(f"{a:.17g},{b:.17g}\n" for a, b in zip(t, signal))
-    folder = write_scenario("""
-        title = "two decays"
-        [data]
-        file = "data.csv"
-        x = "t"
-        y = "signal"
-        [model]
-        expression = "a * exp(-b * t) + c * exp(-d * t)"
-        [parameters]
-        a = { start = 4.0, range = [0.5, 10.0], scale = "log" }
-        b = { start = 1.0, range = [0.05, 3.0], scale = "log" }
-        c = { start = 1.0, range = [0.5, 10.0], scale = "log" }
-        d = { start = 0.1, range = [0.05, 3.0], scale = "log" }
-        [solver]
-        step_factors = [0.5]
-        [sweep]
-        design = "sobol"
-        points = 256
-        maps = []
-        """, data=data)
+    amplitude, rate = {"range": [0.5, 10.0], "scale": "log"}, {"range": [0.05, 3.0], "scale": "log"}
+    toml = scenario_toml(title="two decays", model={"expression": "a * exp(-b * t) + c * exp(-d * t)"},
+                         parameters={"a": {"start": 4.0, **amplitude}, "b": {"start": 1.0, **rate},
+                                     "c": {"start": 1.0, **amplitude}, "d": {"start": 0.1, **rate}},
+                         solver={"step_factors": [0.5]}, sweep={"design": "sobol", "points": 256, "maps": []})
+    folder = write_scenario(toml, data=csv_text("t,signal", t, signal))
     _, result = sweep(folder)
     reference = least_squares(lambda p: p[0] * np.exp(-p[1] * t) + p[2] * np.exp(-p[3] * t) - signal,
                               [4.0, 1.0, 1.0, 0.1], method="lm", xtol=1e-14).x

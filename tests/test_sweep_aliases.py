@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scenario_files import csv_text
 from scipy.optimize import least_squares
+from test_sweep_hard import SINE_DT, SINE_T, sine_toml
 
 import audit.sweep.run
 from audit.engine.batch import fit_batch
@@ -22,24 +24,6 @@ from audit.sweep.result import BEST
 from audit.sweep.run import SweepRequest, run_sweep
 from audit.sweep.starts import make_design, search_space
 
-SINE_DT = 0.25
-SINE_T = np.arange(40) * SINE_DT
-SINE_TOML = """
-    title = "a sampled sinusoid"
-    [data]
-    file = "data.csv"
-    x = "t"
-    y = "y"
-    [model]
-    expression = "amp * sin(omega * t + phase)"
-    [parameters]
-    amp = { start = 1.0, range = [0.1, 5] }
-    omega = { start = 1.0, range = [0.2, 4] }
-    phase = { start = 0.0, range = [-3, 3] }
-    [sweep]
-    points = 4096
-    maps = []
-    """
 SINE_Y = 2.0 * np.sin(1.7 * SINE_T + 0.4) + np.random.default_rng(11).normal(0.0, 0.5, SINE_T.size)
 
 
@@ -80,8 +64,7 @@ def alias_order(params: np.ndarray, best: np.ndarray, tolerance: float = 1e-4) -
 
 @pytest.fixture
 def sine_folder(write_scenario):
-    data = "t,y\n" + "".join(f"{a:.17g},{b:.17g}\n" for a, b in zip(SINE_T, SINE_Y))
-    return write_scenario(SINE_TOML, data=data)
+    return write_scenario(sine_toml(points=4096, maps=[]), data=csv_text("t,y", SINE_T, SINE_Y))
 
 
 def test_every_run_reaching_an_alias_counts_toward_the_best_curve(sine_folder, tmp_path, monkeypatch):

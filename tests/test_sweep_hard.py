@@ -12,6 +12,7 @@ import json
 import numdifftools as nd
 import numpy as np
 import pytest
+from scenario_files import MODEL_FILE, csv_text, data_columns, scenario_toml
 from scipy.optimize import least_squares
 
 from audit.cli import main
@@ -26,28 +27,14 @@ def sweep(folder, **request):
     return scenario, run_sweep(scenario, SweepRequest.from_scenario(scenario, **request), ParallelPlan(jobs=1))
 
 
-def csv(header: str, x: np.ndarray, y: np.ndarray) -> str:
-    return header + "\n" + "".join(f"{a:.17g},{b:.17g}\n" for a, b in zip(x, y))
-
-
 # ---------------------------------------------------------------- no start converges
 
 PRODUCT_X = np.linspace(0.5, 5.0, 12)
-PRODUCT_TOML = """
-    title = "only the product of a and b enters"
-    [data]
-    file = "data.csv"
-    x = "x"
-    y = "y"
-    [model]
-    expression = "a * b * x"
-    [parameters]
-    a = { start = 1.0, range = [0.1, 10] }
-    b = { start = 2.0, range = [0.1, 10] }
-    [sweep]
-    points = 256
-    resolution = 11
-    """
+PRODUCT_TOML = scenario_toml(title="only the product of a and b enters", data=data_columns("x", "y"),
+                             model={"expression": "a * b * x"},
+                             parameters={"a": {"start": 1.0, "range": [0.1, 10]},
+                                         "b": {"start": 2.0, "range": [0.1, 10]}},
+                             sweep={"points": 256, "resolution": 11})
 
 DECAY_X = np.linspace(0.5, 5.0, 12)
 DECAY_MODEL = """
@@ -60,35 +47,23 @@ DECAY_MODEL = """
         decay = np.exp(-k * x)
         return [decay, A * x * decay]   # wrong sign: d/dk of A·exp(−k·x) is −A·x·exp(−k·x)
     """
-DECAY_TOML = """
-    title = "decay whose hand-written Jacobian has a sign error"
-    [data]
-    file = "data.csv"
-    x = "x"
-    y = "y"
-    [model]
-    file = "model.py"
-    function = "model"
-    jacobian = "jacobian"
-    [parameters]
-    A = { start = 4.0, range = [0.5, 20] }
-    k = { start = 0.5, range = [0.05, 5], scale = "log" }
-    [sweep]
-    points = 256
-    resolution = 11
-    """
+DECAY_TOML = scenario_toml(title="decay whose hand-written Jacobian has a sign error", data=data_columns("x", "y"),
+                           model={**MODEL_FILE, "function": "model", "jacobian": "jacobian"},
+                           parameters={"A": {"start": 4.0, "range": [0.5, 20]},
+                                       "k": {"start": 0.5, "range": [0.05, 5], "scale": "log"}},
+                           sweep={"points": 256, "resolution": 11})
 
 
 @pytest.fixture
 def product_folder(write_scenario):
     y = 3.0 * PRODUCT_X + np.random.default_rng(1).normal(0.0, 0.1, PRODUCT_X.size)
-    return write_scenario(PRODUCT_TOML, data=csv("x,y", PRODUCT_X, y))
+    return write_scenario(PRODUCT_TOML, data=csv_text("x,y", PRODUCT_X, y))
 
 
 @pytest.fixture
 def decay_folder(write_scenario):
     y = 5.0 * np.exp(-0.7 * DECAY_X) + np.random.default_rng(2).normal(0.0, 0.05, DECAY_X.size)
-    return write_scenario(DECAY_TOML, model=DECAY_MODEL, data=csv("x,y", DECAY_X, y))
+    return write_scenario(DECAY_TOML, model=DECAY_MODEL, data=csv_text("x,y", DECAY_X, y))
 
 
 def test_a_sweep_where_the_jacobian_never_has_full_rank_reports_rank_loss(product_folder, tmp_path, capsys):
@@ -132,27 +107,20 @@ def test_a_sweep_with_a_wrong_hand_jacobian_names_the_derivative_check(decay_fol
 
 SINE_DT = 0.25
 SINE_T = np.arange(40) * SINE_DT
-SINE_TOML = """
-    title = "a sampled sinusoid"
-    [data]
-    file = "data.csv"
-    x = "t"
-    y = "y"
-    [model]
-    expression = "amp * sin(omega * t + phase)"
-    [parameters]
-    amp = { start = 1.0, range = [0.1, 5] }
-    omega = { start = 1.0, range = [0.2, 4] }
-    phase = { start = 0.0, range = [-3, 3] }
-    [sweep]
-    points = 4096
-    resolution = 11
-    """
+
+
+def sine_toml(**sweep: object) -> str:
+    """The sampled sinusoid amp·sin(omega·t + phase) with ``sweep`` settings (also tests/test_sweep_aliases.py)."""
+    return scenario_toml(title="a sampled sinusoid", data=data_columns("t", "y"),
+                         model={"expression": "amp * sin(omega * t + phase)"},
+                         parameters={"amp": {"start": 1.0, "range": [0.1, 5]},
+                                     "omega": {"start": 1.0, "range": [0.2, 4]},
+                                     "phase": {"start": 0.0, "range": [-3, 3]}}, sweep=sweep)
 
 
 def test_aliases_of_the_frequency_do_not_replace_the_in_range_optimum(write_scenario):
     y = 2.0 * np.sin(1.7 * SINE_T + 0.4) + np.random.default_rng(11).normal(0.0, 0.5, SINE_T.size)
-    _, result = sweep(write_scenario(SINE_TOML, data=csv("t,y", SINE_T, y)))
+    _, result = sweep(write_scenario(sine_toml(points=4096, resolution=11), data=csv_text("t,y", SINE_T, y)))
     # Reference: scipy.optimize.least_squares from a start near the in-range optimum.
     reference = least_squares(lambda p: p[0] * np.sin(p[1] * SINE_T + p[2]) - y, [2.0, 1.8, 0.3],
                               method="lm", xtol=1e-14)
@@ -188,22 +156,11 @@ def test_aliases_of_the_frequency_do_not_replace_the_in_range_optimum(write_scen
 # ---------------------------------------------------------------- recommendation and safe region
 
 MM_S = np.linspace(0.4, 4.0, 10)
-MM_TOML = """
-    title = "an enzyme assay measured only far below saturation"
-    [data]
-    file = "data.csv"
-    x = "S"
-    y = "v"
-    [model]
-    expression = "Vmax * S / (Km + S)"
-    [parameters]
-    Vmax = { start = 10.0, range = [1, 1000], scale = "log" }
-    Km = { start = 1.0, range = [0.1, 1000], scale = "log" }
-    [sweep]
-    design = "sobol"
-    points = 2048
-    maps = []
-    """
+MM_TOML = scenario_toml(title="an enzyme assay measured only far below saturation", data=data_columns("S", "v"),
+                        model={"expression": "Vmax * S / (Km + S)"},
+                        parameters={"Vmax": {"start": 10.0, "range": [1, 1000], "scale": "log"},
+                                    "Km": {"start": 1.0, "range": [0.1, 1000], "scale": "log"}},
+                        sweep={"design": "sobol", "points": 2048, "maps": []})
 
 
 def gauss_newton_fates(starts: np.ndarray, v: np.ndarray, step_factor: float, optimum: np.ndarray,
@@ -246,7 +203,7 @@ def safe_radius(distance: np.ndarray, reached: np.ndarray, level: float = 0.99, 
 def test_the_recommended_step_factor_comes_with_the_region_it_is_safe_from(write_scenario):
     rng = np.random.default_rng(5)
     v = 60.0 * MM_S / (20.0 + MM_S) * (1.0 + rng.normal(0.0, 0.03, MM_S.size))
-    scenario, result = sweep(write_scenario(MM_TOML, data=csv("S,v", MM_S, v)))
+    scenario, result = sweep(write_scenario(MM_TOML, data=csv_text("S,v", MM_S, v)))
     # Reference optimum: scipy.optimize.least_squares from a nearby start.
     optimum = least_squares(lambda p: p[0] * MM_S / (p[1] + MM_S) - v, [90.0, 30.0], method="lm", xtol=1e-14).x
     np.testing.assert_allclose(result.best_params, optimum, rtol=1e-6)
