@@ -19,6 +19,8 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 
 from ..sweep.result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
+from .layout import (COLORBAR_SHRINK, arrange, colorbar_beside, colorbar_room, heading, legend_below, panel_figure,
+                     place_colorbar)
 from .style import (OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, decade_ticks, legend_columns, plain_text, plt,
                     save)
 from .sweep_outside import further_rows, mark_outside, outside_handle, outside_note, outside_rows
@@ -85,15 +87,26 @@ def cell_edges(values: np.ndarray, log: bool) -> np.ndarray:
 
 
 def panel_grid(count: int):
-    """A figure with ``count`` map panels in up to four columns: (figure, axes array)."""
+    """A figure with ``count`` map panels in up to four columns, laid out by ``finish``: (figure, axes array)."""
     columns = min(count, 4)
     rows = math.ceil(count / columns)
     size = (max(PANEL_SIZE * columns + 0.4, MIN_WIDTH), PANEL_SIZE * rows + 1.3)
-    figure, axes = plt.subplots(rows, columns, figsize=size,
-                                constrained_layout=True, squeeze=False, sharex=True, sharey=True)
+    figure, axes = panel_figure(rows, columns, size, sharex=True, sharey=True)
     for extra in axes.flat[count:]:
         extra.set_visible(False)
     return figure, axes
+
+
+def finish(figure, axes, title: str, handles: list, columns: int, bar=None) -> None:
+    """The heading above, the legend of ``handles`` below (at most ``columns`` columns), an optional
+    colour bar right of the panels, and the panels placed between them."""
+    renderer = figure.canvas.get_renderer()
+    top = heading(figure, title, renderer, fontsize=10)
+    _, bottom = legend_below(figure, handles, columns, renderer)
+    right = colorbar_room(bar, renderer) if bar is not None else 0.0
+    arrange(figure, axes, renderer, top=top, bottom=bottom, right=right)
+    if bar is not None:
+        place_colorbar(figure, axes, bar, renderer)
 
 
 def draw_classes(axes, basin_map: BasinMap, classes: np.ndarray, looks, alpha: float = 1.0) -> None:
@@ -170,8 +183,7 @@ def basin_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path,
     if regions:
         handles.append(Patch(**REGION, label=f"safe starting region (≥{result.region_level:.0%} reach the best)"))
     columns = min(4, legend_columns([handle.get_label() for handle in handles], figure.get_figwidth()))
-    figure.legend(handles=handles, loc="outside lower center", ncol=columns, fontsize=8, frameon=False)
-    figure.suptitle(_heading(result, basin_map, m, "where each start leads"), fontsize=10)
+    finish(figure, axes, _heading(result, basin_map, m, "where each start leads"), handles, columns)
     return save(figure, folder, stem, formats)
 
 
@@ -196,10 +208,10 @@ def iteration_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: P
         median = np.nanmedian(counts[f]) if reached[f].any() else float("nan")
         panel.set_title(f"step factor {factor:g}: median {median:.0f}", fontsize=9)
     _labels(axes, basin_map)
-    figure.colorbar(image, ax=axes.ravel().tolist(), shrink=0.8, label="iterations to the best solution")
+    bar = colorbar_beside(figure, image, "iterations to the best solution",
+                          COLORBAR_SHRINK * PANEL_SIZE * axes.shape[0])
     handles = [Patch(**UNREACHED, linewidth=0.5, label="did not reach the best")]
-    figure.legend(handles=handles + marker_legend(), loc="outside lower center", ncol=3, fontsize=8, frameon=False)
-    figure.suptitle(_heading(result, basin_map, m, "iterations needed"), fontsize=10)
+    finish(figure, axes, _heading(result, basin_map, m, "iterations needed"), handles + marker_legend(), 3, bar)
     return save(figure, folder, stem, formats)
 
 
@@ -230,8 +242,8 @@ def cases_on_map_figure(result: SweepResult, basin_map: BasinMap, m: int, folder
     _labels(axes, basin_map)
     handles = [Line2D([], [], color=OUTCOME_STYLE[kind][0], marker=OUTCOME_MARKERS[kind], markersize=5,
                       label=f"{OUTCOME_STYLE[kind][2]} (path)") for kind in dict.fromkeys(kinds)]
-    figure.legend(handles=handles + marker_legend(), loc="outside lower center", ncol=4, fontsize=8, frameon=False)
-    figure.suptitle(_heading(result, basin_map, m, "paths of failing runs (open circle: their start)"), fontsize=10)
+    finish(figure, axes, _heading(result, basin_map, m, "paths of failing runs (open circle: their start)"),
+           handles + marker_legend(), 4)
     return save(figure, folder, stem, formats)
 
 
