@@ -33,12 +33,22 @@ COLORBAR_GAP, COLORBAR_WIDTH, COLORBAR_SHRINK = 0.25, 0.12, 0.8
 
 @dataclass(frozen=True)
 class Decorations:
-    """Room (inches) a panel's texts and ticks take outside its frame: left of it (y tick labels
-    and label), below it (x tick labels and label) and above it (title)."""
+    """Room (inches) a panel's texts and ticks take outside its frame: its y ticks with their labels
+    and its y label (left of it), its x ticks, labels and x label (below it), its title (above it)."""
 
-    left: float
-    below: float
-    above: float
+    y_ticks: float = 0.0
+    y_label: float = 0.0
+    x_ticks: float = 0.0
+    x_label: float = 0.0
+    above: float = 0.0
+
+    @property
+    def left(self) -> float:
+        return self.y_ticks + self.y_label
+
+    @property
+    def below(self) -> float:
+        return self.x_ticks + self.x_label
 
 
 def panel_figure(rows: int, columns: int, size: tuple[float, float], **subplots):
@@ -90,10 +100,9 @@ def _axis_room(axis, renderer, across: int) -> tuple[float, float]:
 
 def decorations(axes, renderer) -> Decorations:
     """The room one panel's tick labels, axis labels and (centre) title take outside its frame."""
-    y_ticks, y_label = _axis_room(axes.yaxis, renderer, 0)
-    x_ticks, x_label = _axis_room(axes.xaxis, renderer, 1)
     title = text_size(axes.title, renderer)[1]
-    return Decorations(y_ticks + y_label, x_ticks + x_label, title + rcParams["axes.titlepad"] / 72 if title else 0.0)
+    return Decorations(*_axis_room(axes.yaxis, renderer, 0), *_axis_room(axes.xaxis, renderer, 1),
+                       title + rcParams["axes.titlepad"] / 72 if title else 0.0)
 
 
 def arrange(figure, grid: np.ndarray, renderer, *, top: float = 0.0, bottom: float = 0.0, right: float = 0.0) -> None:
@@ -105,7 +114,7 @@ def arrange(figure, grid: np.ndarray, renderer, *, top: float = 0.0, bottom: flo
     rows, columns = grid.shape
     room = np.full(grid.shape, None, dtype=object)
     for index, axes in np.ndenumerate(grid):
-        room[index] = decorations(axes, renderer) if axes.get_visible() else Decorations(0.0, 0.0, 0.0)
+        room[index] = decorations(axes, renderer) if axes.get_visible() else Decorations()
     width, height = figure.get_size_inches()
     left = EDGE + max(item.left for item in room[:, 0])
     between_columns = GAP + max((item.left for item in room[:, 1:].flat), default=0.0)
@@ -120,17 +129,15 @@ def arrange(figure, grid: np.ndarray, renderer, *, top: float = 0.0, bottom: flo
     figure.subplots_adjust(left=left / width, right=1 - (EDGE + right) / width, bottom=below / height,
                            top=1 - above / height, wspace=between_columns / panel_width,
                            hspace=between_rows / panel_height)
-    for axes in grid.flat:
-        _fix_texts(axes, renderer, panel_width, panel_height)
+    for axes, item in zip(grid.flat, room.flat):
+        _fix_texts(axes, item, panel_width, panel_height)
 
 
-def _fix_texts(axes, renderer, panel_width: float, panel_height: float) -> None:
+def _fix_texts(axes, room: Decorations, panel_width: float, panel_height: float) -> None:
     """Put the axis labels where matplotlib would (beyond the tick labels, by the label pad) and
     the title at the frame's top, so that drawing does not measure the ticks again to place them."""
-    y_ticks, _ = _axis_room(axes.yaxis, renderer, 0)
-    x_ticks, _ = _axis_room(axes.xaxis, renderer, 1)
-    axes.yaxis.set_label_coords(-(y_ticks + axes.yaxis.labelpad / 72) / panel_width, 0.5)
-    axes.xaxis.set_label_coords(0.5, -(x_ticks + axes.xaxis.labelpad / 72) / panel_height)
+    axes.yaxis.set_label_coords(-(room.y_ticks + axes.yaxis.labelpad / 72) / panel_width, 0.5)
+    axes.xaxis.set_label_coords(0.5, -(room.x_ticks + axes.xaxis.labelpad / 72) / panel_height)
     if axes.get_title():
         # An explicit height turns matplotlib's search for room above the panel off (set_title's y).
         axes.set_title(axes.get_title(), fontsize=axes.title.get_fontsize(), y=1.0)
