@@ -16,7 +16,7 @@ import pytest
 import twin_optima as twin
 
 from audit.figures import sweep as sweep_figures
-from audit.figures import sweep_maps
+from audit.figures import layout, style, sweep_maps
 from audit.figures.style import plt
 from audit.inputs.scenario import load_scenario
 from audit.parallel.plan import ParallelPlan
@@ -132,3 +132,37 @@ def test_the_check_finds_a_legend_over_the_panels_and_a_title_off_the_page():
     plt.close(figure)
     assert any("legend 0" in fault and "frame" in fault for fault in faults)
     assert any("heading" in fault and "outside" in fault for fault in faults)
+
+
+def drawn_ticks(axes) -> list[list[tuple[float, str]]]:
+    """(location, label) of the ticks matplotlib draws on each axis of ``axes``, once drawn."""
+    axes.figure.canvas.draw()
+    found = []
+    for axis in (axes.xaxis, axes.yaxis):
+        low, high = sorted(axis.get_view_interval())
+        found.append([(tick.get_loc(), tick.label1.get_text()) for tick in axis.get_major_ticks()
+                      if low - 1e-9 * (high - low) <= tick.get_loc() <= high + 1e-9 * (high - low)])
+    return found
+
+
+@pytest.mark.parametrize("log", [False, True])
+def test_layout_keeps_the_ticks_matplotlib_draws_and_no_others(log):
+    # Reference: the ticks matplotlib's own locators draw inside the view, ticks on both view edges
+    # included (x from 0 to 10, or 1 to 1000 on a log axis); the layout must keep exactly these,
+    # with the same labels, and make no tick objects beyond the view.
+    figure, grid = layout.panel_figure(1, 1, (4.0, 3.0))
+    axes = grid[0, 0]
+    if log:
+        style.decade_ticks(axes, "x")
+        axes.set_xlim(1.0, 1000.0)
+        axes.set_ylim(0.3, 2e4)
+        axes.set_yscale("log")
+    else:
+        axes.set_xlim(0.0, 10.0)
+        axes.set_ylim(-0.37, 2.91)
+    expected = drawn_ticks(axes)
+    assert expected[0][0][0] == pytest.approx(axes.get_xlim()[0]) and expected[0][-1][0] == pytest.approx(axes.get_xlim()[1])
+    layout.arrange(figure, grid, figure.canvas.get_renderer())
+    assert drawn_ticks(axes) == expected
+    assert [len(axis.get_major_ticks()) for axis in (axes.xaxis, axes.yaxis)] == [len(ticks) for ticks in expected]
+    plt.close(figure)

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from matplotlib import rcParams
+from matplotlib.ticker import FixedLocator
 
 from .style import DPI, plt
 
@@ -86,6 +87,16 @@ def legend_below(figure, handles: list, columns: int, renderer, fontsize: float 
     raise AssertionError("unreachable: one column is always kept")
 
 
+def _ticks_in_view(axis) -> None:
+    """Fix ``axis``'s major ticks to those of its locator inside the view: the same ticks are drawn,
+    but matplotlib no longer makes (and lays out) tick objects for the ones beyond the view, which a
+    log axis's decade locator and the linear one both add on each side (a third of a map's ticks)."""
+    low, high = sorted(axis.get_view_interval())
+    slack = 1e-10 * (high - low)     # matplotlib's own tolerance for a tick on the view's edge
+    locations = axis.get_majorticklocs()
+    axis.set_major_locator(FixedLocator(locations[(locations >= low - slack) & (locations <= high + slack)]))
+
+
 def _axis_room(axis, renderer, across: int) -> tuple[float, float]:
     """(room taken by the ticks and tick labels, by the label) of one axis, in inches, measured
     ``across`` the axis (0: widths, for a y axis; 1: heights, for an x axis)."""
@@ -99,7 +110,10 @@ def _axis_room(axis, renderer, across: int) -> tuple[float, float]:
 
 
 def decorations(axes, renderer) -> Decorations:
-    """The room one panel's tick labels, axis labels and (centre) title take outside its frame."""
+    """The room one panel's tick labels, axis labels and (centre) title take outside its frame; its
+    ticks are fixed to those in view first."""
+    for axis in (axes.xaxis, axes.yaxis):
+        _ticks_in_view(axis)
     title = text_size(axes.title, renderer)[1]
     return Decorations(*_axis_room(axes.yaxis, renderer, 0), *_axis_room(axes.xaxis, renderer, 1),
                        title + rcParams["axes.titlepad"] / 72 if title else 0.0)
