@@ -28,8 +28,16 @@ from .sweep_outside import further_rows, mark_outside, outside_handle, outside_n
 PANEL_SIZE = 3.1
 #: Other solutions drawn each in their own colour; later ones share one.
 NAMED_SOLUTIONS = 3
-BEST_FIT = dict(marker="*", s=170, facecolor="white", edgecolor="black", linewidth=1.0, zorder=5)
-START = dict(marker="o", s=60, facecolor="white", edgecolor="black", linewidth=1.2, zorder=5)
+#: The best fit and the scenario's start on a map, as keywords of a line of markers only (``Axes.plot``):
+#: the look scatter gave them (s = 170 and 60 pt², so markers sqrt(s) pt across) at a fraction of the
+#: cost of a scatter's collection, made for one point.
+BEST_FIT = dict(linestyle="none", marker="*", markersize=170 ** 0.5, markerfacecolor="white", markeredgecolor="black",
+                markeredgewidth=1.0, zorder=5)
+START = dict(linestyle="none", marker="o", markersize=60 ** 0.5, markerfacecolor="white", markeredgecolor="black",
+             markeredgewidth=1.2, zorder=5)
+#: A failing run's start on its path (scatter's s = 30 pt² and default edge width, rcParams' lines.linewidth).
+CASE_START = dict(linestyle="none", marker="o", markersize=30 ** 0.5, markerfacecolor="white", markeredgewidth=1.5,
+                  zorder=4)
 #: The safe starting region: black dashes on a white halo, which show on dark and light cells
 #: alike and on the legend's white ground, where the legend draws the same unfilled outline.
 REGION = dict(fill=False, edgecolor="black", linestyle="--", linewidth=1.6, zorder=4,
@@ -137,8 +145,8 @@ def mark_points(axes, result: SweepResult, basin_map: BasinMap) -> None:
     """The best fit (star) and the scenario's start (circle) on a map panel."""
     x, y = result.names.index(basin_map.x_name), result.names.index(basin_map.y_name)
     if np.all(np.isfinite(result.best_params)):
-        axes.scatter([result.best_params[x]], [result.best_params[y]], **BEST_FIT)
-    axes.scatter([result.start[x]], [result.start[y]], **START)
+        axes.plot([result.best_params[x]], [result.best_params[y]], **BEST_FIT)
+    axes.plot([result.start[x]], [result.start[y]], **START)
 
 
 def mark_region(axes, result: SweepResult, basin_map: BasinMap, m: int, f: int) -> bool:
@@ -234,8 +242,7 @@ def cases_on_map_figure(result: SweepResult, basin_map: BasinMap, m: int, folder
             colour = OUTCOME_STYLE[case.kind][0]
             panel.plot(case.path[:, x], case.path[:, y], color=colour, linewidth=1.0,
                        marker=OUTCOME_MARKERS[case.kind], markersize=3.5)
-            panel.scatter([case.start[x]], [case.start[y]], marker="o", s=30, facecolor="white", edgecolor=colour,
-                          zorder=4)
+            panel.plot([case.start[x]], [case.start[y]], markeredgecolor=colour, **CASE_START)
             kinds.append(case.kind)
         mark_points(panel, result, basin_map)
         panel.set_title(f"step factor {factor:g}", fontsize=9)
