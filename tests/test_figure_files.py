@@ -1,7 +1,8 @@
 """The PNG files ``figures.style.save`` writes hold the pixels matplotlib's own savefig draws.
 
-``save`` encodes PNGs itself (no alpha channel where every pixel is opaque, a faster zlib level);
-the reference is ``Figure.savefig`` at the same resolution, decoded with PIL, compared pixel by pixel.
+``save`` encodes PNGs itself (``figures/png.py``: no alpha channel where every pixel is opaque,
+unfiltered rows); the references are ``Figure.savefig`` at the same resolution and PIL's PNG
+decoder (which checks every chunk's CRC), compared pixel by pixel.
 """
 from __future__ import annotations
 
@@ -12,6 +13,7 @@ import pytest
 from PIL import Image
 
 from audit.figures import style
+from audit.figures.png import png_bytes
 
 
 def a_figure(width: float, height: float, **subplots):
@@ -54,3 +56,22 @@ def test_png_of_a_see_through_figure_keeps_its_alpha(tmp_path):
     with Image.open(path) as written:
         assert written.mode == "RGBA"
         np.testing.assert_array_equal(np.asarray(written), expected)
+
+
+@pytest.mark.parametrize("channels", [3, 4])
+def test_png_bytes_decode_to_the_pixels_written(channels):
+    # Reference: PIL's PNG decoder, on every byte value in every channel, an odd width and one row.
+    rng = np.random.default_rng(5)
+    for shape in [(7, 13, channels), (1, 5, channels)]:
+        pixels = rng.integers(0, 256, size=shape, dtype=np.uint8)
+        with Image.open(io.BytesIO(png_bytes(pixels, 150))) as decoded:
+            assert decoded.mode == {3: "RGB", 4: "RGBA"}[channels]
+            np.testing.assert_array_equal(np.asarray(decoded), pixels)
+            assert decoded.info["dpi"] == pytest.approx((150, 150), rel=1e-3)
+
+
+def test_png_bytes_refuse_pixels_they_cannot_write():
+    with pytest.raises(ValueError, match="uint8"):
+        png_bytes(np.zeros((2, 2, 3), dtype=np.float32), 150)
+    with pytest.raises(ValueError, match="3 or 4"):
+        png_bytes(np.zeros((2, 2, 2), dtype=np.uint8), 150)

@@ -13,12 +13,13 @@ from pathlib import Path
 
 import matplotlib
 import numpy as np
-from PIL import Image
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402  (the backend must be chosen first)
 from matplotlib.font_manager import FontProperties  # noqa: E402
 from matplotlib.ticker import MaxNLocator, NullLocator  # noqa: E402
+
+from .png import write_png  # noqa: E402
 
 #: Kinds of end a run can have once converged runs are split by solution.
 #: label -> (fill colour, hatch, legend text). Ordered dark to light.
@@ -56,8 +57,6 @@ ASYMPTOTIC = "#555555"
 EMPIRICAL = "#1b3a5c"
 
 DPI = 150
-#: zlib level of the PNG files (PIL's default is 6): level 3 is faster, the files about as small.
-PNG_COMPRESSION = 3
 #: Widths of a tick label's characters in em, taken generously (DejaVu Sans digits are 0.64 em),
 #: and the gap kept between neighbouring labels, in em.
 CHARACTER_EM, LABEL_GAP_EM = 0.66, 1.0
@@ -156,12 +155,11 @@ def _write_png(figure, path: Path) -> None:
     """``figure`` drawn at ``DPI`` into a PNG, the same pixels as savefig writes, encoded faster.
 
     Every pixel of a figure on its opaque background is opaque, so the alpha channel is dropped
-    where that holds (a quarter fewer bytes to filter and compress), and zlib's level 3 is used for
-    PIL's default 6: together some 40 % less encoding time, for a file of about the same size.
+    where that holds (a quarter fewer bytes to compress), and rows are written unfiltered
+    (``png.py``): together about a third of the encoding time, for files of about the same size.
     """
     figure.set_dpi(DPI)
     figure.canvas.draw()
     pixels = np.asarray(figure.canvas.buffer_rgba())
     opaque = bool((pixels[..., 3] == 255).all())
-    image = Image.fromarray(np.ascontiguousarray(pixels[..., :3]) if opaque else pixels)
-    image.save(path, format="png", compress_level=PNG_COMPRESSION, dpi=(DPI, DPI))
+    write_png(path, pixels[..., :3] if opaque else pixels, DPI)
