@@ -52,6 +52,22 @@ class Decorations:
         return self.x_ticks + self.x_label
 
 
+#: One mathtext parser for the renderers of every figure laid out here, by renderer class: matplotlib
+#: caches parsed expressions per parser and each renderer makes its own, so the decade labels of a log
+#: axis (10^0, 10^1, ...) were parsed again for every figure, some 10 ms each. Parsing depends only on
+#: the expression, resolution and font (the cache's key), so a shared parser draws the same pixels.
+_MATHTEXT_PARSERS: dict[type, object] = {}
+
+
+def renderer_of(figure):
+    """The renderer ``figure``'s canvas draws with at its current size and resolution (the one the
+    saving draw reuses), sharing its mathtext parser with the other figures of this process."""
+    renderer = figure.canvas.get_renderer()
+    if hasattr(renderer, "mathtext_parser"):
+        renderer.mathtext_parser = _MATHTEXT_PARSERS.setdefault(type(renderer), renderer.mathtext_parser)
+    return renderer
+
+
 def panel_figure(rows: int, columns: int, size: tuple[float, float], **subplots):
     """A figure of ``rows`` × ``columns`` panels (``size`` in inches) with no layout engine, made at
     the saving resolution: (figure, (rows, columns) axes array). ``subplots`` go to plt.subplots."""

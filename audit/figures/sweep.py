@@ -18,7 +18,7 @@ from matplotlib.patches import Patch
 
 from ..sweep.result import CATEGORIES, SweepResult
 from .drawn_once import drawn_once
-from .layout import GAP, arrange, heading, legend_below, panel_figure, text_size
+from .layout import GAP, arrange, heading, legend_below, panel_figure, renderer_of, text_size
 from .style import OUTCOME_MARKERS, OUTCOME_STYLE, decade_ticks, plt, save
 from .sweep_maps import basin_figure, cases_on_map_figure, iteration_figure
 
@@ -91,7 +91,7 @@ def _outcome_bars(result: SweepResult, folder: Path, formats: tuple[str, ...]) -
     legend = axes.legend(handles=handles[::-1], loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=8,
                          frameon=False)
     axes.set_title(f"how {result.points} starts ended ({result.design} design)", fontsize=10)
-    renderer = figure.canvas.get_renderer()
+    renderer = renderer_of(figure)
     # The legend starts 1 % of the axes' width right of it, plus its own border pad (under GAP).
     arrange(figure, grid, renderer, right=text_size(legend, renderer)[0] + GAP + 0.01 * figure.get_figwidth())
     return save(figure, folder, "sweep-outcomes", formats)
@@ -125,7 +125,7 @@ def _paths_figure(result: SweepResult, folder: Path, formats: tuple[str, ...]) -
                       label=f"step factor {factor:g}") for f, factor in enumerate(factors)
                if any(case.step_factor == factor for case in cases)]
     handles.append(Line2D([], [], color="black", linewidth=0.6, linestyle=(0, (1, 2)), label="best fit"))
-    renderer = figure.canvas.get_renderer()
+    renderer = renderer_of(figure)
     top = heading(figure, "example failing runs from the design: parameters at each iteration\n"
                   "(a path leaving its panel ran far beyond the range, or to zero or below on a log axis)", renderer,
                   fontsize=9)

@@ -20,7 +20,7 @@ from matplotlib.patches import Patch, Rectangle
 
 from ..sweep.result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
 from .layout import (COLORBAR_SHRINK, arrange, colorbar_beside, colorbar_room, heading, legend_below, panel_figure,
-                     place_colorbar)
+                     place_colorbar, renderer_of)
 from .style import (OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, decade_ticks, legend_columns, plain_text, plt,
                     save)
 from .sweep_outside import further_rows, mark_outside, outside_handle, outside_note, outside_rows
@@ -108,7 +108,7 @@ def panel_grid(count: int):
 def finish(figure, axes, title: str, handles: list, columns: int, bar=None) -> None:
     """The heading above, the legend of ``handles`` below (at most ``columns`` columns), an optional
     colour bar right of the panels, and the panels placed between them."""
-    renderer = figure.canvas.get_renderer()
+    renderer = renderer_of(figure)
     top = heading(figure, title, renderer, fontsize=10)
     _, bottom = legend_below(figure, handles, columns, renderer)
     right = colorbar_room(bar, renderer) if bar is not None else 0.0

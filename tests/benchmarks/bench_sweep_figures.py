@@ -58,7 +58,13 @@ def load_baseline_writer(folder: Path):
 
 
 def timed_round(write_figures, result, folder: Path) -> dict[str, float]:
-    """Draw every sweep figure of ``result`` into ``folder``: figure name -> CPU seconds."""
+    """Draw every sweep figure of ``result`` into ``folder``: figure name -> CPU seconds.
+
+    The figures' shared mathtext parser (``figures.layout``, where the package has one) is made
+    afresh first, so that each round parses as a new worker process would, once per expression.
+    """
+    layout = sys.modules.get(write_figures.__module__.rsplit(".", 1)[0] + ".layout")
+    getattr(layout, "_MATHTEXT_PARSERS", {}).clear()
     times: dict[str, float] = {}
 
     def timing_map(draw, figures):
