@@ -361,7 +361,8 @@ def test_best_fit_and_start_are_marked_on_every_map_panel(cut_twin, basin_figure
     for axis in basin_figure.axes:
         marks = {line.get_marker(): line for line in axis.get_lines() if line.get_linestyle() == "None"}
         star, circle = marks["*"], marks["o"]
-        np.testing.assert_allclose(np.column_stack([star.get_xdata(), star.get_ydata()]), [[twin.A_OTHER, 0.0]], atol=1e-7)
+        np.testing.assert_allclose(np.column_stack([star.get_xdata(), star.get_ydata()]), [[twin.A_OTHER, 0.0]],
+                                   atol=1e-7)
         np.testing.assert_allclose(np.column_stack([circle.get_xdata(), circle.get_ydata()]), [twin.START])
         assert star.get_markerfacecolor() == circle.get_markerfacecolor() == "white"
         assert star.get_markersize() > circle.get_markersize()

@@ -98,9 +98,9 @@ def legend_below(figure, handles: list, columns: int, renderer, fontsize: float 
                                frameon=False)
         size = text_size(legend, renderer)
         if size[0] <= width or count == 1:
-            return legend, size[1] + GAP
+            break
         legend.remove()
-    raise AssertionError("unreachable: one column is always kept")
+    return legend, size[1] + GAP
 
 
 def _ticks_in_view(axis) -> None:
@@ -140,7 +140,8 @@ def arrange(figure, grid: np.ndarray, renderer, *, top: float = 0.0, bottom: flo
     skipped) so that their decorations fit between them and the figure's edges, keeping ``top``,
     ``bottom`` and ``right`` inches free for a heading, a legend, a colour bar. Axis labels and titles
     are then fixed where matplotlib's automatic placement would put them. Call once the panels'
-    contents, limits, ticks and texts are final."""
+    contents, limits, ticks and texts are final. Panel titles are taken to be centre titles styled
+    by a font size only (they are set again with their text and size, fixed at the frame's top)."""
     rows, columns = grid.shape
     room = np.full(grid.shape, None, dtype=object)
     for index, axes in np.ndenumerate(grid):
