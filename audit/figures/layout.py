@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from matplotlib import rcParams
+from matplotlib.text import Text
 from matplotlib.ticker import FixedLocator
 
 from .style import DPI, plt
@@ -103,35 +104,51 @@ def legend_below(figure, handles: list, columns: int, renderer, fontsize: float 
     return legend, size[1] + GAP
 
 
-def _ticks_in_view(axis) -> None:
-    """Fix ``axis``'s major ticks to those of its locator inside the view: the same ticks are drawn,
-    but matplotlib no longer makes (and lays out) tick objects for the ones beyond the view, which a
-    log axis's decade locator and the linear one both add on each side (a third of a map's ticks)."""
+def _in_view(axis) -> np.ndarray:
+    """The major tick locations ``axis``'s locator gives for its view at the panel's present size,
+    those inside the view only (matplotlib's own tolerance for a tick on the view's edge)."""
     low, high = sorted(axis.get_view_interval())
-    slack = 1e-10 * (high - low)     # matplotlib's own tolerance for a tick on the view's edge
-    locations = axis.get_majorticklocs()
-    axis.set_major_locator(FixedLocator(locations[(locations >= low - slack) & (locations <= high + slack)]))
+    slack = 1e-10 * (high - low)
+    locations = np.asarray(axis.get_majorticklocs())
+    return locations[(locations >= low - slack) & (locations <= high + slack)]
 
 
-def _axis_room(axis, renderer, across: int) -> tuple[float, float]:
+def _ticks_in_view(axis) -> None:
+    """Fix ``axis``'s major ticks to those of its locator inside the view: the same ticks are drawn
+    (call it once the panel has its final size: a locator's tick count may depend on it), but
+    matplotlib no longer makes and lays out tick objects for the ones beyond the view, which a log
+    axis's decade locator and the linear one both add on each side (a third of a map's ticks)."""
+    axis.set_major_locator(FixedLocator(_in_view(axis)))
+
+
+def _axis_room(axis, renderer, across: int, *, estimate: bool = False) -> tuple[float, float]:
     """(room taken by the ticks and tick labels, by the label) of one axis, in inches, measured
-    ``across`` the axis (0: widths, for a y axis; 1: heights, for an x axis)."""
-    labels = axis.get_ticklabels()
-    ticks = axis.get_major_ticks()
-    tick_out = ticks[0].get_tick_padding() / 72 if ticks else 0.0
-    widest = max((text_size(label, renderer)[across] for label in labels), default=0.0)
-    room = tick_out + (widest + ticks[0].get_pad() / 72 if widest else 0.0)
+    ``across`` the axis (0: widths, for a y axis; 1: heights, for an x axis). With ``estimate`` the
+    labels the locator would give now are measured as loose texts, without making tick objects."""
+    first = axis.majorTicks[0]      # made with the axis: its label's font and visibility are the axis's
+    if estimate:
+        texts = axis.get_major_formatter().format_ticks(_in_view(axis)) if first.label1.get_visible() else []
+        widest = max((_loose_text_size(text, first.label1, renderer)[across] for text in texts), default=0.0)
+    else:
+        widest = max((text_size(label, renderer)[across] for label in axis.get_ticklabels()), default=0.0)
+    room = first.get_tick_padding() / 72 + (widest + first.get_pad() / 72 if widest else 0.0)
     label = text_size(axis.label, renderer)[across]
     return room, label + axis.labelpad / 72 if label else 0.0
 
 
-def decorations(axes, renderer) -> Decorations:
-    """The room one panel's tick labels, axis labels and (centre) title take outside its frame; its
-    ticks are fixed to those in view first."""
-    for axis in (axes.xaxis, axes.yaxis):
-        _ticks_in_view(axis)
+def _loose_text_size(text: str, like, renderer) -> tuple[float, float]:
+    """(width, height) in inches ``text`` would take drawn in the font of the text ``like``."""
+    probe = Text(text=text, fontproperties=like.get_fontproperties())
+    probe.set_figure(like.get_figure(root=True))
+    return text_size(probe, renderer)
+
+
+def decorations(axes, renderer, *, estimate: bool = False) -> Decorations:
+    """The room one panel's tick labels, axis labels and (centre) title take outside its frame
+    (``estimate``: see ``_axis_room``)."""
     title = text_size(axes.title, renderer)[1]
-    return Decorations(*_axis_room(axes.yaxis, renderer, 0), *_axis_room(axes.xaxis, renderer, 1),
+    return Decorations(*_axis_room(axes.yaxis, renderer, 0, estimate=estimate),
+                       *_axis_room(axes.xaxis, renderer, 1, estimate=estimate),
                        title + rcParams["axes.titlepad"] / 72 if title else 0.0)
 
 
@@ -142,10 +159,27 @@ def arrange(figure, grid: np.ndarray, renderer, *, top: float = 0.0, bottom: flo
     are then fixed where matplotlib's automatic placement would put them. Call once the panels'
     contents, limits, ticks and texts are final. Panel titles are taken to be centre titles styled
     by a font size only (they are set again with their text and size, fixed at the frame's top)."""
+    # Twice: the tick labels a locator gives depend on the panel's size, so the panels are first
+    # placed by an estimate (the labels it would give now, measured as loose texts), their ticks then
+    # fixed at that size, and the panels placed again by the labels of those ticks.
+    visible = [axes for axes in grid.flat if axes.get_visible()]
+    _place(figure, grid, [decorations(axes, renderer, estimate=True) for axes in visible], top, bottom, right)
+    for axes in visible:
+        for axis in (axes.xaxis, axes.yaxis):
+            _ticks_in_view(axis)
+    room, size = _place(figure, grid, [decorations(axes, renderer) for axes in visible], top, bottom, right)
+    for axes, item in zip(grid.flat, room.flat):
+        _fix_texts(axes, item, *size)
+
+
+def _place(figure, grid: np.ndarray, measured: list[Decorations], top: float, bottom: float, right: float):
+    """``subplots_adjust`` for the panels' decorations ``measured`` (visible panels, in grid order):
+    (decorations by grid position, (panel width, panel height) in inches)."""
     rows, columns = grid.shape
+    found = iter(measured)
     room = np.full(grid.shape, None, dtype=object)
     for index, axes in np.ndenumerate(grid):
-        room[index] = decorations(axes, renderer) if axes.get_visible() else Decorations()
+        room[index] = next(found) if axes.get_visible() else Decorations()
     width, height = figure.get_size_inches()
     left = EDGE + max(item.left for item in room[:, 0])
     between_columns = GAP + max((item.left for item in room[:, 1:].flat), default=0.0)
@@ -160,8 +194,7 @@ def arrange(figure, grid: np.ndarray, renderer, *, top: float = 0.0, bottom: flo
     figure.subplots_adjust(left=left / width, right=1 - (EDGE + right) / width, bottom=below / height,
                            top=1 - above / height, wspace=between_columns / panel_width,
                            hspace=between_rows / panel_height)
-    for axes, item in zip(grid.flat, room.flat):
-        _fix_texts(axes, item, panel_width, panel_height)
+    return room, (panel_width, panel_height)
 
 
 def _fix_texts(axes, room: Decorations, panel_width: float, panel_height: float) -> None:
