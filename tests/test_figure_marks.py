@@ -352,3 +352,17 @@ def test_legend_lies_within_its_figure(which, profile_figure, basin_figure):
     legend = figure.legends[0].get_window_extent()
     page = figure.bbox
     assert page.x0 <= legend.x0 and legend.x1 <= page.x1, (legend, page)
+
+
+def test_best_fit_and_start_are_marked_on_every_map_panel(cut_twin, basin_figure):
+    # With a cut at 1.5 the best fit the sweep audits is the minimum inside the ranges, a = −1 − 1/√2,
+    # b = 0 (calculus, twin_optima.py: A_OTHER); the start is the scenario's own (twin.START). Each
+    # panel marks each once, a white star and a white circle.
+    for axis in basin_figure.axes:
+        marks = {line.get_marker(): line for line in axis.get_lines() if line.get_linestyle() == "None"}
+        star, circle = marks["*"], marks["o"]
+        np.testing.assert_allclose(np.column_stack([star.get_xdata(), star.get_ydata()]), [[twin.A_OTHER, 0.0]],
+                                   atol=1e-7)
+        np.testing.assert_allclose(np.column_stack([circle.get_xdata(), circle.get_ydata()]), [twin.START])
+        assert star.get_markerfacecolor() == circle.get_markerfacecolor() == "white"
+        assert star.get_markersize() > circle.get_markersize()

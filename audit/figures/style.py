@@ -12,11 +12,14 @@ import math
 from pathlib import Path
 
 import matplotlib
+import numpy as np
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402  (the backend must be chosen first)
 from matplotlib.font_manager import FontProperties  # noqa: E402
 from matplotlib.ticker import MaxNLocator, NullLocator  # noqa: E402
+
+from .png import write_png  # noqa: E402
 
 #: Kinds of end a run can have once converged runs are split by solution.
 #: label -> (fill colour, hatch, legend text). Ordered dark to light.
@@ -139,7 +142,24 @@ def save(figure, folder: Path, stem: str, formats: tuple[str, ...] = ("png",)) -
     paths = []
     for extension in formats:
         path = folder / f"{stem}.{extension}"
-        figure.savefig(path, dpi=DPI)
+        if extension == "png":
+            _write_png(figure, path)
+        else:
+            figure.savefig(path, dpi=DPI)
         paths.append(path)
     plt.close(figure)
     return paths
+
+
+def _write_png(figure, path: Path) -> None:
+    """``figure`` drawn at ``DPI`` into a PNG, the same pixels as savefig writes, encoded faster.
+
+    Every pixel of a figure on its opaque background is opaque, so the alpha channel is dropped
+    where that holds (a quarter fewer bytes to compress), and rows are written unfiltered
+    (``png.py``): together about a third of the encoding time, for files of about the same size.
+    """
+    figure.set_dpi(DPI)
+    figure.canvas.draw()
+    pixels = np.asarray(figure.canvas.buffer_rgba())
+    opaque = bool((pixels[..., 3] == 255).all())
+    write_png(path, pixels[..., :3] if opaque else pixels, DPI)

@@ -18,6 +18,7 @@ from matplotlib.patches import Patch
 
 from ..sweep.result import CATEGORIES, SweepResult
 from .drawn_once import drawn_once
+from .layout import GAP, arrange, heading, legend_below, panel_figure, renderer_of, text_size
 from .style import OUTCOME_MARKERS, OUTCOME_STYLE, decade_ticks, plt, save
 from .sweep_maps import basin_figure, cases_on_map_figure, iteration_figure
 
@@ -64,7 +65,8 @@ def _outcome_bars(result: SweepResult, folder: Path, formats: tuple[str, ...]) -
     labels = [f"{factor:g}" + ("" if len(result.methods) == 1 else f"\n{method}")
               for method in result.methods for factor in result.step_factors]
     shares = result.shares.reshape(-1, len(CATEGORIES))
-    figure, axes = plt.subplots(figsize=(max(4.8, 1.0 * len(labels) + 2.6), 4.4), constrained_layout=True)
+    figure, grid = panel_figure(1, 1, (max(4.8, 1.0 * len(labels) + 2.6), 4.4))
+    axes = grid[0, 0]
     positions = np.arange(len(labels))
     bottom = np.zeros(len(labels))
     handles = []
@@ -86,8 +88,12 @@ def _outcome_bars(result: SweepResult, folder: Path, formats: tuple[str, ...]) -
     axes.set_ylabel("share of starts")
     axes.set_ylim(0, 1.08)
     axes.yaxis.set_major_formatter(plt.FuncFormatter(lambda value, _: f"{value:.0%}"))
-    axes.legend(handles=handles[::-1], loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=8, frameon=False)
+    legend = axes.legend(handles=handles[::-1], loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=8,
+                         frameon=False)
     axes.set_title(f"how {result.points} starts ended ({result.design} design)", fontsize=10)
+    renderer = renderer_of(figure)
+    # The legend starts 1 % of the axes' width right of it, plus its own border pad (under GAP).
+    arrange(figure, grid, renderer, right=text_size(legend, renderer)[0] + GAP + 0.01 * figure.get_figwidth())
     return save(figure, folder, "sweep-outcomes", formats)
 
 
@@ -97,8 +103,7 @@ def _paths_figure(result: SweepResult, folder: Path, formats: tuple[str, ...]) -
         return []
     kinds = list(dict.fromkeys(case.kind for case in cases))
     n = len(result.names)
-    figure, axes = plt.subplots(n, len(kinds), figsize=(max(3.3 * len(kinds) + 0.6, 6.0), 1.9 * n + 1.2),
-                                constrained_layout=True, squeeze=False, sharex="col")
+    figure, axes = panel_figure(n, len(kinds), (max(3.3 * len(kinds) + 0.6, 6.0), 1.9 * n + 1.2), sharex="col")
     factors = list(result.step_factors)
     for column, kind in enumerate(kinds):
         colour = OUTCOME_STYLE[kind][0]
@@ -120,10 +125,12 @@ def _paths_figure(result: SweepResult, folder: Path, formats: tuple[str, ...]) -
                       label=f"step factor {factor:g}") for f, factor in enumerate(factors)
                if any(case.step_factor == factor for case in cases)]
     handles.append(Line2D([], [], color="black", linewidth=0.6, linestyle=(0, (1, 2)), label="best fit"))
-    figure.legend(handles=handles, loc="outside lower center", ncol=len(handles), fontsize=8, frameon=False)
-    figure.suptitle("example failing runs from the design: parameters at each iteration\n"
-                    "(a path leaving its panel ran far beyond the range, or to zero or below on a log axis)",
-                    fontsize=9)
+    renderer = renderer_of(figure)
+    top = heading(figure, "example failing runs from the design: parameters at each iteration\n"
+                  "(a path leaving its panel ran far beyond the range, or to zero or below on a log axis)", renderer,
+                  fontsize=9)
+    _, bottom = legend_below(figure, handles, len(handles), renderer)
+    arrange(figure, axes, renderer, top=top, bottom=bottom)
     return save(figure, folder, "sweep-cases", formats)
 
 

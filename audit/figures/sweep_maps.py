@@ -19,6 +19,8 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
 
 from ..sweep.result import BEST, CATEGORIES, OTHER, BasinMap, SweepResult
+from .layout import (COLORBAR_SHRINK, arrange, colorbar_beside, colorbar_room, heading, legend_below, panel_figure,
+                     place_colorbar, renderer_of)
 from .style import (OUTCOME_MARKERS, OUTCOME_STYLE, SOLUTION_COLOURS, decade_ticks, legend_columns, plain_text, plt,
                     save)
 from .sweep_outside import further_rows, mark_outside, outside_handle, outside_note, outside_rows
@@ -26,8 +28,16 @@ from .sweep_outside import further_rows, mark_outside, outside_handle, outside_n
 PANEL_SIZE = 3.1
 #: Other solutions drawn each in their own colour; later ones share one.
 NAMED_SOLUTIONS = 3
-BEST_FIT = dict(marker="*", s=170, facecolor="white", edgecolor="black", linewidth=1.0, zorder=5)
-START = dict(marker="o", s=60, facecolor="white", edgecolor="black", linewidth=1.2, zorder=5)
+#: The best fit and the scenario's start on a map, as keywords of a line of markers only (``Axes.plot``):
+#: the look scatter gave them (s = 170 and 60 pt², so markers sqrt(s) pt across) at a fraction of the
+#: cost of a scatter's collection, made for one point.
+BEST_FIT = dict(linestyle="none", marker="*", markersize=170 ** 0.5, markerfacecolor="white", markeredgecolor="black",
+                markeredgewidth=1.0, zorder=5)
+START = dict(linestyle="none", marker="o", markersize=60 ** 0.5, markerfacecolor="white", markeredgecolor="black",
+             markeredgewidth=1.2, zorder=5)
+#: A failing run's start on its path (scatter's s = 30 pt² and default edge width, rcParams' lines.linewidth).
+CASE_START = dict(linestyle="none", marker="o", markersize=30 ** 0.5, markerfacecolor="white", markeredgewidth=1.5,
+                  zorder=4)
 #: The safe starting region: black dashes on a white halo, which show on dark and light cells
 #: alike and on the legend's white ground, where the legend draws the same unfilled outline.
 REGION = dict(fill=False, edgecolor="black", linestyle="--", linewidth=1.6, zorder=4,
@@ -85,15 +95,26 @@ def cell_edges(values: np.ndarray, log: bool) -> np.ndarray:
 
 
 def panel_grid(count: int):
-    """A figure with ``count`` map panels in up to four columns: (figure, axes array)."""
+    """A figure with ``count`` map panels in up to four columns, laid out by ``finish``: (figure, axes array)."""
     columns = min(count, 4)
     rows = math.ceil(count / columns)
     size = (max(PANEL_SIZE * columns + 0.4, MIN_WIDTH), PANEL_SIZE * rows + 1.3)
-    figure, axes = plt.subplots(rows, columns, figsize=size,
-                                constrained_layout=True, squeeze=False, sharex=True, sharey=True)
+    figure, axes = panel_figure(rows, columns, size, sharex=True, sharey=True)
     for extra in axes.flat[count:]:
         extra.set_visible(False)
     return figure, axes
+
+
+def finish(figure, axes, title: str, handles: list, columns: int, bar=None) -> None:
+    """The heading above, the legend of ``handles`` below (at most ``columns`` columns), an optional
+    colour bar right of the panels, and the panels placed between them."""
+    renderer = renderer_of(figure)
+    top = heading(figure, title, renderer, fontsize=10)
+    _, bottom = legend_below(figure, handles, columns, renderer)
+    right = colorbar_room(bar, renderer) if bar is not None else 0.0
+    arrange(figure, axes, renderer, top=top, bottom=bottom, right=right)
+    if bar is not None:
+        place_colorbar(figure, axes, bar, renderer)
 
 
 def draw_classes(axes, basin_map: BasinMap, classes: np.ndarray, looks, alpha: float = 1.0) -> None:
@@ -124,8 +145,8 @@ def mark_points(axes, result: SweepResult, basin_map: BasinMap) -> None:
     """The best fit (star) and the scenario's start (circle) on a map panel."""
     x, y = result.names.index(basin_map.x_name), result.names.index(basin_map.y_name)
     if np.all(np.isfinite(result.best_params)):
-        axes.scatter([result.best_params[x]], [result.best_params[y]], **BEST_FIT)
-    axes.scatter([result.start[x]], [result.start[y]], **START)
+        axes.plot([result.best_params[x]], [result.best_params[y]], **BEST_FIT)
+    axes.plot([result.start[x]], [result.start[y]], **START)
 
 
 def mark_region(axes, result: SweepResult, basin_map: BasinMap, m: int, f: int) -> bool:
@@ -170,8 +191,7 @@ def basin_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: Path,
     if regions:
         handles.append(Patch(**REGION, label=f"safe starting region (≥{result.region_level:.0%} reach the best)"))
     columns = min(4, legend_columns([handle.get_label() for handle in handles], figure.get_figwidth()))
-    figure.legend(handles=handles, loc="outside lower center", ncol=columns, fontsize=8, frameon=False)
-    figure.suptitle(_heading(result, basin_map, m, "where each start leads"), fontsize=10)
+    finish(figure, axes, _heading(result, basin_map, m, "where each start leads"), handles, columns)
     return save(figure, folder, stem, formats)
 
 
@@ -196,10 +216,10 @@ def iteration_figure(result: SweepResult, basin_map: BasinMap, m: int, folder: P
         median = np.nanmedian(counts[f]) if reached[f].any() else float("nan")
         panel.set_title(f"step factor {factor:g}: median {median:.0f}", fontsize=9)
     _labels(axes, basin_map)
-    figure.colorbar(image, ax=axes.ravel().tolist(), shrink=0.8, label="iterations to the best solution")
+    bar = colorbar_beside(figure, image, "iterations to the best solution",
+                          COLORBAR_SHRINK * PANEL_SIZE * axes.shape[0])
     handles = [Patch(**UNREACHED, linewidth=0.5, label="did not reach the best")]
-    figure.legend(handles=handles + marker_legend(), loc="outside lower center", ncol=3, fontsize=8, frameon=False)
-    figure.suptitle(_heading(result, basin_map, m, "iterations needed"), fontsize=10)
+    finish(figure, axes, _heading(result, basin_map, m, "iterations needed"), handles + marker_legend(), 3, bar)
     return save(figure, folder, stem, formats)
 
 
@@ -222,16 +242,15 @@ def cases_on_map_figure(result: SweepResult, basin_map: BasinMap, m: int, folder
             colour = OUTCOME_STYLE[case.kind][0]
             panel.plot(case.path[:, x], case.path[:, y], color=colour, linewidth=1.0,
                        marker=OUTCOME_MARKERS[case.kind], markersize=3.5)
-            panel.scatter([case.start[x]], [case.start[y]], marker="o", s=30, facecolor="white", edgecolor=colour,
-                          zorder=4)
+            panel.plot([case.start[x]], [case.start[y]], markeredgecolor=colour, **CASE_START)
             kinds.append(case.kind)
         mark_points(panel, result, basin_map)
         panel.set_title(f"step factor {factor:g}", fontsize=9)
     _labels(axes, basin_map)
     handles = [Line2D([], [], color=OUTCOME_STYLE[kind][0], marker=OUTCOME_MARKERS[kind], markersize=5,
                       label=f"{OUTCOME_STYLE[kind][2]} (path)") for kind in dict.fromkeys(kinds)]
-    figure.legend(handles=handles + marker_legend(), loc="outside lower center", ncol=4, fontsize=8, frameon=False)
-    figure.suptitle(_heading(result, basin_map, m, "paths of failing runs (open circle: their start)"), fontsize=10)
+    finish(figure, axes, _heading(result, basin_map, m, "paths of failing runs (open circle: their start)"),
+           handles + marker_legend(), 4)
     return save(figure, folder, stem, formats)
 
 
