@@ -73,3 +73,15 @@ def test_a_cached_sobol_sweep_and_a_sweep_worker_import_no_design_generator(tmp_
               "chunk = work(((0, 4), np.full((4, 3), 0.5)))\n"
               "assert chunk['outcome'].shape == (1, 1, 4)\n")
     assert not submodules_loaded_by(worker, "scipy.stats")
+
+
+def test_a_sweep_on_two_workers_draws_its_figures_there_and_never_imports_matplotlib_here(tmp_path):
+    # matplotlib takes about a second to import (python -X importtime); the workers the sweep
+    # started import it side by side while this process waits, instead of this one first.
+    sweep = ["sweep", "probe-cooling", "--starts", "64", "--resolution", "4", "--step-factors", "1",
+             "--jobs", "2", "-o", str(tmp_path), "--json"]
+    run = f"from audit.cli import main\ntry:\n    main({sweep!r})\nexcept SystemExit:\n    pass\n"
+    assert not submodules_loaded_by(run, "matplotlib")
+    drawn = sorted(path.name for path in (tmp_path / "figures").glob("*.png"))
+    assert drawn == ["sweep-basins-dT-tau.png", "sweep-cases-map-dT-tau.png", "sweep-cases.png",
+                     "sweep-iterations-dT-tau.png", "sweep-outcomes.png"]

@@ -16,6 +16,7 @@ import pytest
 import twin_optima as twin
 
 from audit.figures import sweep as sweep_figures
+from audit.figures import sweep_charts
 from audit.figures import layout, style, sweep_maps
 from audit.figures.style import plt
 from audit.inputs.scenario import load_scenario
@@ -35,7 +36,7 @@ def drawn_figures(result, folder, monkeypatch) -> dict:
         figures[stem] = figure
         return []
 
-    monkeypatch.setattr(sweep_figures, "save", keep)
+    monkeypatch.setattr(sweep_charts, "save", keep)
     monkeypatch.setattr(sweep_maps, "save", keep)
     sweep_figures.write_figures(result, folder)
     return figures

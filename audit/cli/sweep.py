@@ -105,7 +105,10 @@ def run(args: argparse.Namespace) -> int:
 
         result = run_sweep(scenario, request, plan, folder, on_progress=advance)
     # The other stages audit this sweep's reference only while the problem stays the same.
-    files = write_results(result, folder, "sweep", functools.partial(write_figures, mapper=local_mapper(plan)))
+    # The figures (seconds of drawing) go to the workers the sweep started: matplotlib is then
+    # imported there, at the same time, and never in this process.
+    files = write_results(result, folder, "sweep",
+                          functools.partial(write_figures, mapper=local_mapper(plan, first_here=False)))
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:

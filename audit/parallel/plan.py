@@ -59,14 +59,16 @@ class ParallelPlan:
         return (os.cpu_count() or 1) if self.jobs == -1 else self.jobs
 
 
-def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: ParallelPlan) -> Iterator[Any]:
+def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: ParallelPlan, *,
+               first_here: bool = True) -> Iterator[Any]:
     """Apply ``function`` to every chunk; yield the results in the order of ``chunks``.
 
     Chunks are consumed lazily (a few per worker ahead), so a long iterable of small chunk
     descriptions never sits in memory at once. With one job everything runs in this process.
-    When the chunks are a sized collection on local processes, the first is run here and
-    timed; if the rest would take less than WORKER_START_SECONDS, they run here too (workers
-    are started only when the work pays for them). The results are the same either way.
+    When the chunks are a sized collection on local processes and ``first_here`` is set, the
+    first is run here and timed; if the rest would take less than WORKER_START_SECONDS, they run
+    here too (workers are started only when the work pays for them). The results are the same
+    either way.
     """
     if plan.backend == "dask":
         # joblib's Dask backend hashes the function in a background thread; an unhashable one
@@ -76,7 +78,8 @@ def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: Para
         except TypeError:
             raise TypeError(f"{type(function).__name__} must be hashable to run on Dask "
                             "(a dataclass needs eq=False or frozen=True)") from None
-    if plan.backend == "processes" and plan.workers > 1 and isinstance(chunks, Sized) and len(chunks) > 1:
+    local_pool = plan.backend == "processes" and plan.workers > 1
+    if first_here and local_pool and isinstance(chunks, Sized) and len(chunks) > 1:
         remaining = len(chunks) - 1
         chunks = iter(chunks)
         began = time.perf_counter()
@@ -95,11 +98,15 @@ def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: Para
         yield from parallel(joblib.delayed(function)(chunk) for chunk in chunks)
 
 
-def local_mapper(plan: ParallelPlan) -> Callable[[Callable[[Any], Any], Sized], Iterator[Any]]:
+def local_mapper(plan: ParallelPlan, *, first_here: bool = True) -> Callable[[Callable[[Any], Any], Sized],
+                                                                              Iterator[Any]]:
     """``mapper(function, items)`` over this machine's processes, for work that writes files here
-    (figures): a Dask plan's workers may sit on other machines, so it maps over local cores."""
+    (figures): a Dask plan's workers may sit on other machines, so it maps over local cores.
+
+    ``first_here=False`` sends every item to the workers (when there are several): for work that
+    pays for them whatever its first item costs, and whose imports this process need not pay."""
     local = plan if plan.backend == "processes" else ParallelPlan()
-    return functools.partial(map_chunks, plan=local)
+    return functools.partial(map_chunks, plan=local, first_here=first_here)
 
 
 def watch_parent(parent: int) -> None:
