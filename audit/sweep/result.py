@@ -252,8 +252,8 @@ class SweepResult:
                             "radius": self.region_radius, "lower": self.region_lower, "upper": self.region_upper,
                             "starts_inside": self.region_starts, "share_inside": self.region_share,
                             "start_inside": self.start_inside},
-            "maps": [basin_map.to_dict() for basin_map in self.maps],
-            "cases": [case.to_dict() for case in self.cases],
+            "maps": list(self.maps),                  # jsonable asks each for its to_dict(), once
+            "cases": list(self.cases),
             "chunks": self.chunks, "cache": self.cache, "warnings": self.warnings,
         })
 
