@@ -28,6 +28,7 @@ from audit.uncertainty import bootstrap as bootstrap_module
 from audit.uncertainty.bootstrap import run_bootstrap
 from audit.uncertainty.refits import chunk_generator
 from audit.uncertainty.resampling import build_scheme
+from audit.uncertainty.replicates import FATES, classify
 
 TOML = scenario_toml(model={**MODEL_FILE, "time_limit": 1.0},
                      parameters={**DECAY_PARAMETERS, "amplitude": {"start": 4.0, "range": [0.1, 60.0]}})
@@ -208,3 +209,16 @@ def test_a_bootstrap_times_out_the_chunk_that_sleeps_and_the_other_refits_match_
     used = result.replicates.used
     assert list(np.flatnonzero(~used)) == list(np.flatnonzero(in_chunk))
     np.testing.assert_allclose(result.replicates.params[used], expected[used], rtol=1e-6)
+
+
+def test_a_converged_refit_whose_descent_ran_out_of_time_is_counted_timed_out_not_another_solution():
+    # The fate rule of uncertainty.replicates (its module docstring): a converged refit is "best"
+    # when the descent from the best fit on the same data confirms it, "other" when the descent
+    # ends elsewhere or fails, and "timed_out" when the time limit cut the descent short.
+    converged, timed_out = int(Outcome.CONVERGED), int(Outcome.TIMED_OUT)
+    outcome = np.array([converged, converged, converged, timed_out], dtype=np.int8)
+    descent_outcome = np.array([converged, timed_out, int(Outcome.STALLED), timed_out], dtype=np.int8)
+    same = np.array([True, False, False, False])
+    fits = classify(np.zeros((4, 2)), np.zeros(4), outcome, np.zeros(4, dtype=np.int64), np.zeros((4, 2)),
+                    descent_outcome, same)
+    assert [FATES[k] for k in fits.fate] == ["best", "timed_out", "other", "timed_out"]

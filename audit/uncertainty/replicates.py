@@ -10,7 +10,9 @@ basin holds the best fit; the refit itself when the refits already are such runs
 - other: it ends elsewhere (a Gauss-Newton step jumped into another basin: another local
   minimum, an alias, a mirror image), or the descent did not converge, so nothing confirms
   the solution. Its values would mix two solutions into one interval, so it is left out like a
-  failed refit.
+  failed refit;
+- timed out: the descent was cut short by ``[model] time_limit``, so nothing confirms it either,
+  and the reason is the limit, not another solution.
 
 Two end points are the same point when their curves agree on the replicate's data as closely as
 the sweep's same-curve test demands and no parameter differs by SAME_POINT standard errors (a
@@ -145,6 +147,7 @@ def classify(params: np.ndarray, ssr: np.ndarray, outcome: np.ndarray, iteration
     converged = outcome == Outcome.CONVERGED
     confirmed = same & (descent_outcome == Outcome.CONVERGED)
     fate[converged] = np.where(confirmed[converged], BEST, OTHER)
+    fate[converged & (descent_outcome == Outcome.TIMED_OUT)] = FATES.index("timed_out")
     return ReplicateFits(params=params, ssr=ssr, outcome=outcome, iterations=iterations, descent=descent,
                          descent_outcome=descent_outcome, same_point=same, fate=fate)
 
