@@ -28,8 +28,6 @@ for variable in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "
     os.environ[variable] = "1"   # one core: set before numpy loads its BLAS
 
 import argparse  # noqa: E402
-import importlib  # noqa: E402
-import importlib.util  # noqa: E402
 import json  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
@@ -39,6 +37,7 @@ import numpy as np  # noqa: E402
 
 # This tree's package, whatever else is installed (an editable install may point elsewhere).
 sys.path[:0] = [str(Path(__file__).resolve().parents[2]), str(Path(__file__).resolve().parent)]
+from baseline_package import baseline_module  # noqa: E402
 from bench_engine import TOLERANCE, saturation, two_decays, two_peaks  # noqa: E402
 
 from audit import Outcome, Problem, fit_batch  # noqa: E402
@@ -46,20 +45,10 @@ from audit.engine import trust_region  # noqa: E402
 
 THIS_TREE = Path(__file__).resolve().parents[2]
 
-BASELINE_PACKAGE = "baseline_audit"
-
-
 def load_baseline(folder: Path):
     """The ``audit`` package under ``folder``, imported as ``baseline_audit``: (fit_batch, Problem)."""
-    init = folder / "audit" / "__init__.py"
-    if not init.is_file():
-        raise SystemExit(f"{folder} holds no audit package (expected {init})")
-    spec = importlib.util.spec_from_file_location(BASELINE_PACKAGE, init, submodule_search_locations=[str(init.parent)])
-    package = importlib.util.module_from_spec(spec)
-    sys.modules[BASELINE_PACKAGE] = package
-    spec.loader.exec_module(package)
-    batch = importlib.import_module(f"{BASELINE_PACKAGE}.engine.batch")
-    problem = importlib.import_module(f"{BASELINE_PACKAGE}.engine.problem")
+    batch = baseline_module(folder, "engine.batch")
+    problem = baseline_module(folder, "engine.problem")
     return batch.fit_batch, problem.Problem
 
 

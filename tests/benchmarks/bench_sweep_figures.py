@@ -23,8 +23,6 @@ for variable in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "
     os.environ[variable] = "1"   # one core: set before numpy loads its BLAS
 
 import argparse  # noqa: E402
-import importlib  # noqa: E402
-import importlib.util  # noqa: E402
 import json  # noqa: E402
 import shutil  # noqa: E402
 import sys  # noqa: E402
@@ -35,26 +33,17 @@ from pathlib import Path  # noqa: E402
 import numpy as np  # noqa: E402
 
 THIS_TREE = Path(__file__).resolve().parents[2]
-sys.path.insert(0, str(THIS_TREE))   # this tree's package, whatever else is installed
+sys.path[:0] = [str(THIS_TREE), str(Path(__file__).resolve().parent)]   # this tree's package first
 
+from baseline_package import baseline_module  # noqa: E402
 from audit.inputs.scenario import load_scenario  # noqa: E402
 from audit.parallel.plan import ParallelPlan  # noqa: E402
 from audit.sweep.run import SweepRequest, run_sweep  # noqa: E402
 
-BASELINE_PACKAGE = "baseline_audit"
-
 
 def load_baseline_writer(folder: Path):
-    """``write_figures`` of the sweep figures of the ``audit`` package under ``folder``, imported as
-    ``baseline_audit``."""
-    init = folder / "audit" / "__init__.py"
-    if not init.is_file():
-        raise SystemExit(f"{folder} holds no audit package (expected {init})")
-    spec = importlib.util.spec_from_file_location(BASELINE_PACKAGE, init, submodule_search_locations=[str(init.parent)])
-    package = importlib.util.module_from_spec(spec)
-    sys.modules[BASELINE_PACKAGE] = package
-    spec.loader.exec_module(package)
-    return importlib.import_module(f"{BASELINE_PACKAGE}.figures.sweep").write_figures
+    """``write_figures`` of the sweep figures of the ``audit`` package under ``folder``."""
+    return baseline_module(folder, "figures.sweep").write_figures
 
 
 def timed_round(write_figures, result, folder: Path) -> dict[str, float]:
