@@ -27,7 +27,7 @@ import numpy as np
 
 #: Raise when the layout of a chunk file changes: old caches are then ignored (changes to the
 #: computation are caught by ``code_digest``).
-CACHE_FORMAT = 4
+CACHE_FORMAT = 5
 #: Folders of the package that only present results; their code never changes a chunk.
 PRESENTATION = ("cli", "figures", "report")
 #: Hex digits of the settings hash in the folder name.
