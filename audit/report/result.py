@@ -97,9 +97,6 @@ class AuditResult:
         """
         scenario = self.scenario
         writers = []
-        if self.asymptotic is not None:
-            writers.append(functools.partial(fit_figure.write_figure, scenario.problem, self.asymptotic, folder,
-                                             x_label=scenario.x_names[0], y_label=scenario.y_name))
         for result, stage in ((self.derivatives, derivative_figures), (self.sweep, sweep_figures),
                               (self.bootstrap, bootstrap_figures), (self.identifiability, identifiability_figures)):
             if result is not None:
@@ -110,6 +107,12 @@ class AuditResult:
             x = problem.x if problem.x.ndim == 1 else problem.x.T
             writers.append(functools.partial(residual_figures.write_figures, self.residuals, x, fitted, folder,
                                              formats=BOTH_FORMATS, x_label=scenario.x_names[0]))
+        # The fit figure, always drawn, comes last: a mapper that times the first writer to decide
+        # whether workers pay then sees a stage whose figures a rerun finds drawn already, and
+        # keeps the rerun in this process instead of starting workers to find nothing to draw.
+        if self.asymptotic is not None:
+            writers.append(functools.partial(fit_figure.write_figure, scenario.problem, self.asymptotic, folder,
+                                             x_label=scenario.x_names[0], y_label=scenario.y_name))
         return [path for paths in mapper(_called, writers) for path in paths]
 
     def write(self, folder: str | Path, mapper: Callable = map) -> list[Path]:
