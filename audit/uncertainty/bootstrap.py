@@ -32,8 +32,8 @@ from ..jsonable import jsonable
 from ..parallel.plan import ParallelPlan
 from .disagreement import Flag, IntervalComparison, compare_intervals
 from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percentile_interval
-from .refits import KINDS, ChunkFits, Refitter, refit_all, refit_cache_folder, split
-from .replicates import FATE_MEANINGS, ReplicateFits, classify, distance_scale
+from .refits import KINDS, Refitter, refit_all, refit_cache_folder, split
+from .replicates import FATE_MEANINGS, RefitEnds, ReplicateFits, classify, distance_scale
 from .resampling import build_scheme
 
 #: Refits per chunk: up to MAX_CHUNK (large enough for the batched solver to amortise numpy's
@@ -215,7 +215,7 @@ def chunk_size(problem: Problem) -> int:
     return int(np.clip(CHUNK_ELEMENTS // problem.n_obs, MIN_CHUNK, MAX_CHUNK))
 
 
-def _classified(pieces: list[ChunkFits]) -> ReplicateFits:
+def _classified(pieces: list[RefitEnds]) -> ReplicateFits:
     def joined(name: str) -> np.ndarray:
         return np.concatenate([getattr(piece, name) for piece in pieces])
     return classify(joined("params"), joined("ssr"), joined("outcome"), joined("iterations"), joined("descent"),

@@ -23,7 +23,7 @@ from ..engine.batch import RefitSettings, fit_batch
 from ..engine.problem import Problem
 from ..parallel.chunk_cache import ChunkStore, cache_key, code_digest
 from ..parallel.plan import ParallelPlan, map_chunks
-from .replicates import same_point
+from .replicates import RefitEnds, same_point
 from .resampling import Scheme, leave_one_out
 
 #: The kinds of refit chunk, in the order they run; each kind has its own chunk files.
@@ -38,23 +38,6 @@ class RefitChunk:
     index: int
     first: int
     count: int
-
-
-@dataclass(frozen=True)
-class ChunkFits:
-    """What a worker sends back for one chunk (plain arrays, cheap to pickle and to store).
-
-    Attributes (c refits, n parameters): params (c, n), ssr (c,), outcome (c,) int8,
-    iterations (c,), descent (c, n), descent_outcome (c,) int8, same_point (c,) bool.
-    """
-
-    params: np.ndarray
-    ssr: np.ndarray
-    outcome: np.ndarray
-    iterations: np.ndarray
-    descent: np.ndarray
-    descent_outcome: np.ndarray
-    same_point: np.ndarray
 
 
 @dataclass(frozen=True, eq=False)
@@ -72,7 +55,7 @@ class Refitter:
     refit: RefitSettings
     seed: int
 
-    def __call__(self, chunk: RefitChunk) -> ChunkFits:
+    def __call__(self, chunk: RefitChunk) -> RefitEnds:
         if chunk.kind == "bootstrap":
             problem, data = self.problem, self.scheme.draw(chunk_generator(self.seed, chunk.index), chunk.count)
         else:
@@ -93,7 +76,7 @@ class Refitter:
             descent = fit_batch(problem, starts, 1.0, method="lm", **options)
         same = same_point(problem, fit.params, descent.params, self.scale, y=data.y, x=data.x,
                           weights=data.weights)
-        return ChunkFits(params=fit.params, ssr=fit.ssr, outcome=fit.outcome, iterations=fit.iterations,
+        return RefitEnds(params=fit.params, ssr=fit.ssr, outcome=fit.outcome, iterations=fit.iterations,
                          descent=descent.params, descent_outcome=descent.outcome, same_point=same)
 
 
@@ -119,7 +102,7 @@ def refit_cache_folder(parent: Path, fingerprint: str, settings: dict) -> Path:
 
 
 def refit_all(worker: Refitter, chunks: list[RefitChunk], plan: ParallelPlan, folder: Path | None,
-              progress: Callable[[int], None] | None = None) -> tuple[dict[str, list[ChunkFits]], dict[str, int]]:
+              progress: Callable[[int], None] | None = None) -> tuple[dict[str, list[RefitEnds]], dict[str, int]]:
     """Every chunk's fits, in the order of ``chunks``: read from ``folder`` where stored, the
     others computed through ``map_chunks`` and stored as each finishes (``folder`` None: none
     stored or read).
@@ -128,7 +111,7 @@ def refit_all(worker: Refitter, chunks: list[RefitChunk], plan: ParallelPlan, fo
         The fits per kind (KINDS), and the counts of chunks {"total", "reused", "computed"}.
     """
     stores = {kind: ChunkStore(folder, kind) for kind in KINDS} if folder is not None else None
-    found: dict[tuple[str, int], ChunkFits] = {}
+    found: dict[tuple[str, int], RefitEnds] = {}
     for chunk in chunks:
         stored = _stored(stores[chunk.kind], chunk) if stores is not None else None
         if stored is not None:
@@ -151,12 +134,12 @@ def _span(chunk: RefitChunk) -> np.ndarray:
     return np.array([chunk.first, chunk.count], dtype=np.int64)
 
 
-def _stored(store: ChunkStore, chunk: RefitChunk) -> ChunkFits | None:
+def _stored(store: ChunkStore, chunk: RefitChunk) -> RefitEnds | None:
     """The stored fits of ``chunk``, or None when missing, damaged or of another span."""
     arrays = store.load(chunk.index)
     if arrays is None or not np.array_equal(arrays.pop("span", None), _span(chunk)):
         return None
     try:
-        return ChunkFits(**arrays)
+        return RefitEnds(**arrays)
     except TypeError:
         return None            # arrays of another layout

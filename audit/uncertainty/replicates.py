@@ -44,9 +44,10 @@ FATE_MEANINGS = {
 BEST, OTHER = 0, 1
 
 
-@dataclass
-class ReplicateFits:
-    """Refits of B replicate data sets.
+@dataclass(frozen=True)
+class RefitEnds:
+    """Where B refits and their descents ended (plain arrays: what a worker sends back for a chunk
+    and the chunk cache stores).
 
     Attributes:
         params: (B, n) end points.
@@ -56,7 +57,6 @@ class ReplicateFits:
         descent: (B, n) where the descent from the best fit on the same data ended.
         descent_outcome: (B,) its ``Outcome`` codes.
         same_point: (B,) True where the refit and the descent end at the same point.
-        fate: (B,) index into FATES.
     """
 
     params: np.ndarray
@@ -66,6 +66,12 @@ class ReplicateFits:
     descent: np.ndarray
     descent_outcome: np.ndarray
     same_point: np.ndarray
+
+
+@dataclass(frozen=True)
+class ReplicateFits(RefitEnds):
+    """Refits of B replicate data sets (``RefitEnds``) with each one's fate: (B,) index into FATES."""
+
     fate: np.ndarray
 
     @property
