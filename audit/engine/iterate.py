@@ -105,8 +105,9 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
         y=None if shared_y is not None else runs.y[block],
         sqrt_w=None if runs.sqrt_weights is None or shared_w is not None else runs.sqrt_weights[block],
         x=None if shared_x is not None else np.moveaxis(problem.take_runs(runs.x, block), problem.runs_axis(), 0),
-        radius=np.full(len(block), np.nan),
-        norm_memory=np.zeros((len(block), len(free))),
+        # Levenberg-Marquardt's trust radius and largest column norms; Gauss-Newton has neither.
+        radius=np.full(len(block), np.nan) if method == "lm" else None,
+        norm_memory=np.zeros((len(block), len(free))) if method == "lm" else None,
         ssr_previous=np.full(len(block), np.inf),
         ssr_two_back=np.full(len(block), np.inf),
         last_move=np.zeros((len(block), len(free))),
@@ -175,7 +176,7 @@ def run_block(problem: Problem, runs: Runs, block: np.ndarray, result, method: s
             weights = shared_w if state.sqrt_w is None else state.sqrt_w
             if weights is not None:
                 rows = [row * weights for row in rows]
-            system = StepSystem.build(rows, state.weighted, state.norm_memory if method == "lm" else None,
+            system = StepSystem.build(rows, state.weighted, state.norm_memory,
                                       held=state.held)
             if system.broken.any():
                 overflowed = system.broken & (np.abs(state.params) > state.far).any(axis=1)
@@ -319,9 +320,15 @@ def _track_reversals(state: _Working, move: np.ndarray, iteration: int) -> None:
     """
     length, last_length = np.sqrt(np.add.reduce(move * move, axis=1)), state.last_length   # as np.linalg.norm
     reversing = np.einsum("ac,ac->a", move, state.last_move) < -0.5 * length * last_length
-    cycling = np.max(np.abs(move + state.last_move), axis=1) <= 0.5 * np.max(np.abs(move), axis=1)
+    # Whether a reversing step comes back near the iterate before it is asked of those steps only:
+    # most runs do not reverse, and the test takes two passes over the steps.
+    reversed_rows = np.flatnonzero(reversing)
+    back, last_move = move[reversed_rows], state.last_move[reversed_rows]
+    cycling = np.max(np.abs(back + last_move), axis=1, initial=0.0) <= 0.5 * np.max(np.abs(back), axis=1, initial=0.0)
     state.shrinking = length < last_length
-    state.reversals = np.where(reversing & cycling, state.reversals + 1, 0)
+    reversals = np.zeros_like(state.reversals)
+    reversals[reversed_rows[cycling]] = state.reversals[reversed_rows[cycling]] + 1
+    state.reversals = reversals
     state.past_lengths[:, iteration % OSCILLATION_WINDOW] = last_length
     state.oldest_length_slot = (iteration + 1) % OSCILLATION_WINDOW
     state.last_move, state.last_length = move, length
@@ -365,6 +372,7 @@ def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
         oscillating &= not_falling & (state.change > 100 * tol)
     decided = diverged | undefined | settled | oscillating
     if decided.any():
-        codes = np.select([diverged, undefined, settled & state.lost_rank, settled],
+        rows = np.flatnonzero(decided)
+        codes = np.select([diverged[rows], undefined[rows], settled[rows] & state.lost_rank[rows], settled[rows]],
                           [Outcome.DIVERGED, Outcome.MODEL_ERROR, Outcome.SINGULAR, Outcome.CONVERGED], Outcome.OSCILLATING)
-        finish(decided, codes[decided], iteration)
+        finish(decided, codes, iteration)

@@ -151,8 +151,11 @@ def _careful_factors(rows: list[np.ndarray], residual: np.ndarray, norms: np.nda
         empty = np.empty((0, width))
         square = np.empty((0, width, width))
         return square, empty, square, empty, empty
-    scaled = np.stack([np.broadcast_to(row, residual.shape)[careful] for row in rows], axis=1)
-    scaled = scaled / norms[careful][:, :, None]
+    chosen = np.flatnonzero(careful)
+    scaled = np.empty((len(chosen), width, residual.shape[1]))
+    for j, row in enumerate(rows):
+        scaled[:, j] = np.broadcast_to(row, residual.shape)[chosen]
+    scaled /= norms[chosen][:, :, None]
     if held is not None:
         # Held columns become unit columns on rows of their own (appended observations with
         # zero residual), which is what the Gram matrix says.
