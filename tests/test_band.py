@@ -83,3 +83,19 @@ def test_fit_figure_is_written_and_decodes(tmp_path):
     image = matplotlib.image.imread(next(path for path in paths if path.suffix == ".png"))
     assert image.ndim == 3 and image.shape[0] > 100 and image.shape[1] > 100
     assert next(path for path in paths if path.suffix == ".pdf").read_bytes().startswith(b"%PDF")
+
+
+def test_fit_figure_is_drawn_again_only_when_what_it_shows_changes(tmp_path):
+    scenario = load_scenario(BUNDLED)
+    fit = least_squares(lambda p: scenario.problem.residuals(p[None, :])[0], scenario.start)
+    estimates = estimate(scenario.problem, fit.x)
+    first = write_figure(scenario.problem, estimates, tmp_path, formats=("png",))
+    drawn = first[0].stat().st_mtime_ns
+    assert write_figure(scenario.problem, estimates, tmp_path, formats=("png",)) == first
+    assert first[0].stat().st_mtime_ns == drawn   # the same picture is not drawn again
+    moved = estimate(scenario.problem, fit.x * (1 + 1e-6))
+    write_figure(scenario.problem, moved, tmp_path, formats=("png",))
+    assert first[0].stat().st_mtime_ns != drawn
+    relabelled = first[0].stat().st_mtime_ns
+    write_figure(scenario.problem, moved, tmp_path, x_label="t", formats=("png",))
+    assert first[0].stat().st_mtime_ns != relabelled

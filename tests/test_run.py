@@ -139,6 +139,18 @@ def test_a_rerun_hands_out_first_figures_it_finds_drawn_and_the_fit_figure_last(
     assert order[-1] is fit_figure.write_figure
 
 
+def test_a_cached_rerun_draws_no_figure_again(quick_run):
+    # Issue 17: figures are drawn once per result. A rerun takes every stage from its cache (the
+    # bootstrap's result then counts its chunks as reused, which no figure shows); the fit and
+    # residual figures, drawn from the data and the fit beside a stage's result, are unchanged too.
+    _, out, _ = quick_run
+    folder = out / "figures"
+    drawn = {path.name: path.stat().st_mtime_ns for path in folder.iterdir()}
+    assert {"fit-band.png", "residuals.png", "bootstrap-histograms.png"} <= set(drawn)
+    main(["run", str(BUNDLED), "--quick", "-o", str(out), "--json"])
+    assert {path.name: path.stat().st_mtime_ns for path in folder.iterdir()} == drawn
+
+
 def test_appendix_sections_in_order_with_the_json_numbers(quick_run, reference):
     _, out, payload = quick_run
     result = run_audit(BUNDLED, out=out, quick=True)  # the sweep comes from the cache

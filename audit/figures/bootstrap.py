@@ -38,7 +38,7 @@ ESTIMATE_COLOUR = "#000000"
 DENSITY_MAP = LinearSegmentedColormap.from_list("replicate_density", ["#ffffff", EMPIRICAL])
 
 
-@drawn_once()
+@drawn_once("chunks", "cache")
 def write_figures(result: BootstrapResult, folder: Path, formats: tuple[str, ...] = ("png",)) -> list[Path]:
     """Draw the histograms and (for two or more parameters) the pairs plot into ``folder``.
 

@@ -9,6 +9,7 @@ through a higher-dimensional design has no single line to draw.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -16,6 +17,7 @@ import numpy as np
 from ..engine.band import confidence_band
 from ..engine.estimates import Estimates
 from ..engine.problem import Problem
+from .drawn_once import drawn_once
 from .style import ASYMPTOTIC, EMPIRICAL, plain_text, plt, save
 
 #: Points of the drawn curve across the data's range of the predictor.
@@ -23,10 +25,55 @@ CURVE_POINTS = 400
 STEM = "fit-band"
 
 
+@dataclass(frozen=True)
+class FitPicture:
+    """Every number the fit figure shows, so that an unchanged picture is not drawn again.
+
+    Attributes:
+        x: (m,) the first predictor at the observations; y: (m,) the observations; sigma: (m,)
+            their standard deviations, or None without weights.
+        at_data: (m,) the fitted values at the observations.
+        where: (g,) where the curve is drawn (a grid across the data with one predictor, the
+            observations with several); fitted, half: (g,) the curve and its band's half-width.
+        grid: True when ``where`` is a grid (drawn as a line), False for fitted values at the data.
+        confidence: the band's level, e.g. 0.95; x_label, y_label: the axis labels.
+    """
+
+    x: np.ndarray
+    y: np.ndarray
+    sigma: np.ndarray | None
+    at_data: np.ndarray
+    where: np.ndarray
+    fitted: np.ndarray
+    half: np.ndarray
+    grid: bool
+    confidence: float
+    x_label: str
+    y_label: str
+
+
+def fit_picture(problem: Problem, estimates: Estimates, x_label: str = "x", y_label: str = "y") -> FitPicture:
+    """The numbers of the fit figure of ``problem`` at ``estimates`` (see ``write_figure``)."""
+    x = np.asarray(problem.x, dtype=float)
+    first = x if x.ndim == 1 else x[0]
+    sigma = None if problem.weights is None else 1.0 / np.sqrt(problem.weights)
+    band = (estimates.params, estimates.covariance, estimates.t_quantile)
+    at_data, _ = confidence_band(problem, *band)
+    if x.ndim == 1:
+        where = np.linspace(first.min(), first.max(), CURVE_POINTS)
+        fitted, half = confidence_band(problem, *band, where)
+    else:
+        where = first
+        fitted, half = confidence_band(problem, *band)
+    return FitPicture(first, np.asarray(problem.y, dtype=float), sigma, at_data, where, fitted, half, x.ndim == 1,
+                      estimates.confidence, x_label, y_label)
+
+
 def write_figure(problem: Problem, estimates: Estimates, folder: Path, *, x_label: str = "x", y_label: str = "y",
                  formats: tuple[str, ...] = ("png", "pdf")) -> list[Path]:
     """Draw ``folder/fit-band.<format>``: data (±σ where given), fitted curve, confidence band; below,
-    the data minus the curve with the band around zero.
+    the data minus the curve with the band around zero. A rerun that finds the same picture drawn
+    there keeps its files.
 
     Args:
         problem: the fitted problem (data, weights, model).
@@ -38,25 +85,25 @@ def write_figure(problem: Problem, estimates: Estimates, folder: Path, *, x_labe
     Returns:
         The files written, one per format.
     """
+    return draw_picture(fit_picture(problem, estimates, x_label, y_label), folder, formats)
+
+
+@drawn_once()
+def draw_picture(picture: FitPicture, folder: Path, formats: tuple[str, ...]) -> list[Path]:
+    """Draw ``picture`` into ``folder/fit-band.<format>`` (see ``write_figure``)."""
     figure, (axes, below) = plt.subplots(2, 1, figsize=(6.4, 6.4), sharex=True, height_ratios=(2, 1),
                                          constrained_layout=True)
-    x = np.asarray(problem.x, dtype=float)
-    first = x if x.ndim == 1 else x[0]
-    sigma = None if problem.weights is None else 1.0 / np.sqrt(problem.weights)
     data = dict(fmt="o", markersize=3, color=ASYMPTOTIC, ecolor=ASYMPTOTIC, elinewidth=0.8, zorder=3)
-    axes.errorbar(first, problem.y, yerr=sigma, label="data" + (" (±σ)" if sigma is not None else ""), **data)
-    level = f"{estimates.confidence:.0%} confidence band of the curve"
-    at_data, _ = confidence_band(problem, estimates.params, estimates.covariance, estimates.t_quantile)
-    below.errorbar(first, problem.y - at_data, yerr=sigma, **data)
+    axes.errorbar(picture.x, picture.y, yerr=picture.sigma,
+                  label="data" + (" (±σ)" if picture.sigma is not None else ""), **data)
+    level = f"{picture.confidence:.0%} confidence band of the curve"
+    below.errorbar(picture.x, picture.y - picture.at_data, yerr=picture.sigma, **data)
     below.axhline(0.0, color=EMPIRICAL, linewidth=1.0)
-    if x.ndim == 1:
-        where = np.linspace(first.min(), first.max(), CURVE_POINTS)
-        fitted, half = confidence_band(problem, estimates.params, estimates.covariance, estimates.t_quantile, where)
+    where, fitted, half = picture.where, picture.fitted, picture.half
+    if picture.grid:
         axes.plot(where, fitted, color=EMPIRICAL, linewidth=1.4, label="fitted curve", zorder=4)
     else:
-        where = first
-        fitted, half = confidence_band(problem, estimates.params, estimates.covariance, estimates.t_quantile)
-        axes.plot(first, fitted, "s", markersize=3, color=EMPIRICAL, label="fitted values", zorder=4)
+        axes.plot(where, fitted, "s", markersize=3, color=EMPIRICAL, label="fitted values", zorder=4)
     if np.isfinite(half).all():
         order = np.argsort(where, kind="stable")
         axes.fill_between(where[order], (fitted - half)[order], (fitted + half)[order], color=EMPIRICAL, alpha=0.25,
@@ -65,8 +112,8 @@ def write_figure(problem: Problem, estimates: Estimates, folder: Path, *, x_labe
         axes.set_title(f"widest half-width of the band: {np.max(half):.3g}", fontsize=9)
     else:
         axes.set_title("no band: the covariance is undefined (the Jacobian lost rank)", fontsize=9)
-    axes.set_ylabel(plain_text(y_label))
+    axes.set_ylabel(plain_text(picture.y_label))
     axes.legend(fontsize=8)
-    below.set_xlabel(plain_text(x_label))
+    below.set_xlabel(plain_text(picture.x_label))
     below.set_ylabel("data − fitted curve")
     return save(figure, folder, STEM, formats)

@@ -6,12 +6,14 @@ in short.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy import stats
 
+from audit.figures.drawn_once import drawn_once
 from audit.figures.style import ASYMPTOTIC, EMPIRICAL, plain_text, plt, save
 
 if TYPE_CHECKING:
@@ -34,10 +36,29 @@ def write_figures(result: ResidualChecks, x, fitted, folder: Path, formats: tupl
         x_label: axis label of the first predictor.
 
     Returns:
-        The files written, one per format.
+        The files written, one per format. A rerun that finds the same picture drawn in
+        ``folder`` keeps its files.
     """
     x = np.asarray(x, dtype=float)
-    first = x if x.ndim == 1 else x[:, 0]
+    picture = ResidualPicture(result, x if x.ndim == 1 else x[:, 0], np.asarray(fitted, dtype=float), x_label)
+    return draw_picture(picture, folder, formats)
+
+
+@dataclass(frozen=True)
+class ResidualPicture:
+    """What the residual figure shows: the checks, the first predictor (m,), the fitted values (m,)
+    and the predictor's label."""
+
+    checks: ResidualChecks
+    x: np.ndarray
+    fitted: np.ndarray
+    x_label: str
+
+
+@drawn_once()
+def draw_picture(picture: ResidualPicture, folder: Path, formats: tuple[str, ...]) -> list[Path]:
+    """Draw ``picture`` into ``folder/residuals.<format>`` (see ``write_figures``)."""
+    result, first, fitted, x_label = picture.checks, picture.x, picture.fitted, picture.x_label
     weighted = result.weighted_residuals
     figure, axes = plt.subplots(1, 3, figsize=(3 * PANEL_WIDTH, PANEL_HEIGHT), constrained_layout=True)
 
