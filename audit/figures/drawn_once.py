@@ -27,36 +27,54 @@ def drawn_once(*bookkeeping: str) -> Callable[[Callable[..., list[Path]]], Calla
 
     ``bookkeeping`` names the result's fields that no figure shows and that change from a run to
     its cached rerun (how many chunks were reused, where the cache is); they are not digested.
+
+    The wrapped function gains ``kept(result, folder, formats)``: the files it would keep, or
+    None when it would draw, so that a caller can tell the figures still to draw from the rest
+    before sending any of them to worker processes.
     """
     def wrap(draw: Callable[..., list[Path]]) -> Callable[..., list[Path]]:
         @functools.wraps(draw)
         def write(result, folder: Path, formats: tuple[str, ...] = ("png",), **options) -> list[Path]:
             return _write(draw, bookkeeping, result, folder, formats, options)
 
+        write.kept = functools.partial(_kept, draw, bookkeeping)
         return write
 
     return wrap
 
 
-def _write(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tuple[str, ...],
-           options: dict) -> list[Path]:
-    """The files of ``result``'s figures in ``folder``: those recorded there, or drawn now (``options``
-    go to ``draw`` and say how to draw, not what: they are not digested)."""
-    stage = draw.__module__.rsplit(".", 1)[-1]
+def _kept(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tuple[str, ...] = ("png",),
+          **options) -> list[Path] | None:
+    """The files of ``result``'s figures recorded in ``folder`` when the record matches and they are
+    all there, else None (``options`` say how to draw, not what: they are not digested)."""
     folder = Path(folder)
-    record = folder / f".{stage}-drawn.json"
-    digest = _digest(result, formats, bookkeeping)
     try:
-        kept = json.loads(record.read_text())
+        kept = json.loads(_record(draw, folder).read_text())
     except (OSError, ValueError):
-        kept = {}
-    drawn = kept.get("files") if kept.get("digest") == digest else None
+        return None
+    drawn = kept.get("files") if kept.get("digest") == _digest(result, formats, bookkeeping) else None
     if drawn is not None and all((folder / name).is_file() for name in drawn):
         return [folder / name for name in drawn]
+    return None
+
+
+def _write(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tuple[str, ...],
+           options: dict) -> list[Path]:
+    """The files of ``result``'s figures in ``folder``: those recorded there, or drawn now."""
+    kept = _kept(draw, bookkeeping, result, folder, formats)
+    if kept is not None:
+        return kept
     paths = draw(result, folder, formats, **options)
+    folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    record.write_text(json.dumps({"digest": digest, "files": [Path(path).name for path in paths]}))
+    record = {"digest": _digest(result, formats, bookkeeping), "files": [Path(path).name for path in paths]}
+    _record(draw, folder).write_text(json.dumps(record))
     return paths
+
+
+def _record(draw, folder: Path) -> Path:
+    """The record of ``draw``'s figures in ``folder``, named after its module (its stage)."""
+    return folder / f".{draw.__module__.rsplit('.', 1)[-1]}-drawn.json"
 
 
 def _digest(result, formats: tuple[str, ...], bookkeeping: tuple[str, ...]) -> str:

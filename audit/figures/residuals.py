@@ -39,9 +39,7 @@ def write_figures(result: ResidualChecks, x, fitted, folder: Path, formats: tupl
         The files written, one per format. A rerun that finds the same picture drawn in
         ``folder`` keeps its files.
     """
-    x = np.asarray(x, dtype=float)
-    picture = ResidualPicture(result, x if x.ndim == 1 else x[:, 0], np.asarray(fitted, dtype=float), x_label)
-    return draw_picture(picture, folder, formats)
+    return draw_picture(residual_picture(result, x, fitted, x_label), folder, formats)
 
 
 @dataclass(frozen=True)
@@ -53,6 +51,12 @@ class ResidualPicture:
     x: np.ndarray
     fitted: np.ndarray
     x_label: str
+
+
+def residual_picture(result: ResidualChecks, x, fitted, x_label: str = "x") -> ResidualPicture:
+    """What the residual figure of ``result`` shows (arguments as ``write_figures``)."""
+    x = np.asarray(x, dtype=float)
+    return ResidualPicture(result, x if x.ndim == 1 else x[:, 0], np.asarray(fitted, dtype=float), x_label)
 
 
 @drawn_once()

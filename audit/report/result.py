@@ -29,6 +29,9 @@ AUDIT_FILE = "audit.json"
 FIGURES = "figures"
 #: The appendix needs both: PNG for HTML and Markdown, PDF for the LaTeX fragment.
 BOTH_FORMATS = ("png", "pdf")
+#: Figure writers to draw from which worker processes pay: each stage's figures take 0.3-1.7 s of
+#: CPU here, and starting workers that import matplotlib costs about a second.
+WORKERS_PAY_FROM = 3
 
 
 @dataclass
@@ -92,28 +95,28 @@ class AuditResult:
         """Every figure of the stages that ran, PNG (HTML, Markdown) and PDF (LaTeX), into ``folder``;
         the paths written, stage by stage.
 
-        ``mapper(function, items)`` runs the stages' figure writers, which are independent, e.g. over
-        worker processes of this machine (``parallel.plan.local_mapper``); the builtin ``map`` by default.
+        Figures found drawn for the same result are kept (``figures.drawn_once``). When at least
+        WORKERS_PAY_FROM writers have figures to draw, they go to ``mapper(function, items)``, e.g.
+        over worker processes of this machine (``parallel.plan.local_mapper``); fewer are drawn here.
         """
-        scenario = self.scenario
+        scenario, problem = self.scenario, self.scenario.problem
         writers = []
         for result, stage in ((self.derivatives, derivative_figures), (self.sweep, sweep_figures),
                               (self.bootstrap, bootstrap_figures), (self.identifiability, identifiability_figures)):
             if result is not None:
                 writers.append(functools.partial(stage.write_figures, result, folder, BOTH_FORMATS))
         if self.residuals is not None:
-            problem = scenario.problem
-            fitted = problem.predict(self.best_fit.params[None, :])[0]
             x = problem.x if problem.x.ndim == 1 else problem.x.T
-            writers.append(functools.partial(residual_figures.write_figures, self.residuals, x, fitted, folder,
-                                             formats=BOTH_FORMATS, x_label=scenario.x_names[0]))
-        # The fit figure, always drawn, comes last: a mapper that times the first writer to decide
-        # whether workers pay then sees a stage whose figures a rerun finds drawn already, and
-        # keeps the rerun in this process instead of starting workers to find nothing to draw.
+            fitted = problem.predict(self.best_fit.params[None, :])[0]
+            picture = residual_figures.residual_picture(self.residuals, x, fitted, scenario.x_names[0])
+            writers.append(functools.partial(residual_figures.draw_picture, picture, folder, BOTH_FORMATS))
         if self.asymptotic is not None:
-            writers.append(functools.partial(fit_figure.write_figure, scenario.problem, self.asymptotic, folder,
-                                             x_label=scenario.x_names[0], y_label=scenario.y_name))
-        return [path for paths in mapper(_called, writers) for path in paths]
+            picture = fit_figure.fit_picture(problem, self.asymptotic, scenario.x_names[0], scenario.y_name)
+            writers.append(functools.partial(fit_figure.draw_picture, picture, folder, BOTH_FORMATS))
+        kept = [writer.func.kept(*writer.args) for writer in writers]
+        missing = [writer for writer, files in zip(writers, kept) if files is None]
+        drawn = iter((mapper if len(missing) >= WORKERS_PAY_FROM else map)(_called, missing))
+        return [path for files in kept for path in (next(drawn) if files is None else files)]
 
     def write(self, folder: str | Path, mapper: Callable = map) -> list[Path]:
         """Write ``folder/audit.json``, ``folder/figures/*.{png,pdf}`` and the appendix files
