@@ -7,8 +7,8 @@ from rich.table import Table
 
 from ..inputs.scenario import Scenario
 from ..jsonable import jsonable
-from .common import (EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario, out, print_json,
-                     shown)
+from .common import (EXIT_OK, add_command, add_json_option, add_scenario_argument, number, open_scenario, out,
+                     print_json, shown)
 
 DESCRIPTION = """\
 Read a scenario (scenario.toml, the data file and the model) and check everything that can be

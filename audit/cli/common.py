@@ -70,7 +70,8 @@ def add_command(subparsers, name: str, summary: str, description: str, examples:
 
 def add_scenario_argument(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("scenario", metavar="SCENARIO",
-                        help="scenario folder (holding scenario.toml), a scenario .toml file, or a bundled scenario's name (fitaudit list)")
+                        help="scenario folder (holding scenario.toml), a scenario .toml file, or a bundled "
+                             "scenario's name (fitaudit list)")
 
 
 def add_json_option(parser: argparse.ArgumentParser) -> None:

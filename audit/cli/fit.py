@@ -11,7 +11,8 @@ from ..engine.single_fit import SingleFit, fit_once
 from ..errors import InputError
 from ..inputs.settings import nearest
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_scenario_argument, add_solver_option,
-                     add_step_factors_option, number, one_step_factor, open_scenario, out, print_json, print_table, shown)
+                     add_step_factors_option, number, one_step_factor, open_scenario, out, print_json, print_table,
+                     shown)
 
 DESCRIPTION = """\
 Fit the scenario's model once, from its starting values, by iterated linearisation, and show
@@ -80,8 +81,8 @@ def run(args: argparse.Namespace) -> int:
             out.print(f"[dim]next: raise {shown('[model] time_limit')} in scenario.toml, or find what makes the model "
                       "slow along this path[/]", soft_wrap=True)
         elif not fit.converged:
-            out.print(f"[dim]next: a smaller --step-factors, --solver lm, or 'fitaudit sweep {shown(args.scenario)}' to see "
-                      "which starts and step factors reach the best fit[/]", soft_wrap=True)
+            out.print(f"[dim]next: a smaller --step-factors, --solver lm, or 'fitaudit sweep {shown(args.scenario)}' "
+                      "to see which starts and step factors reach the best fit[/]", soft_wrap=True)
     return EXIT_OK if fit.converged else EXIT_FINDING
 
 
@@ -104,13 +105,14 @@ def show(fit: SingleFit) -> None:
     level = f"{estimates.confidence:.0%}"
     table = Table(title=f"estimates (s = {number(estimates.residual_sd)}, {estimates.dof} degrees of freedom)",
                   title_justify="left")
-    for heading in ("parameter", "estimate", "std. error", "std. error / |estimate|", f"{level} lower", f"{level} upper"):
+    headings = ("parameter", "estimate", "std. error", "std. error / |estimate|", f"{level} lower", f"{level} upper")
+    for heading in headings:
         table.add_column(heading, justify="left" if heading == "parameter" else "right")
     for name, value, error, lower, upper in zip(estimates.names, estimates.params, estimates.std_errors,
                                                 estimates.lower, estimates.upper):
         relative = abs(error / value) if value else float("nan")
-        table.add_row(shown(name), number(value, 8), number(error, 4), f"{relative:.2%}" if relative == relative else "—",
-                      number(lower, 8), number(upper, 8))
+        share = f"{relative:.2%}" if relative == relative else "—"
+        table.add_row(shown(name), number(value, 8), number(error, 4), share, number(lower, 8), number(upper, 8))
     print_table(table)
     correlation = Table(title="correlation", title_justify="left")
     correlation.add_column("")

@@ -11,14 +11,15 @@ from ..figures.identifiability import write_figures
 from ..identifiability.analysis import PRACTICAL_CORRELATION, Identifiability, identify_scenario
 from ..identifiability.profiles import SIDE_STATUS
 from .common import (EXIT_FINDING, EXIT_OK, add_command, add_json_option, add_output_option, add_parallel_options,
-                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, print_table, progress_bar,
-                     show_audited_fit, shown, sweep_reference, write_results)
+                     add_scenario_argument, number, open_scenario, out, parallel_plan, print_json, print_table,
+                     progress_bar, show_audited_fit, shown, sweep_reference, write_results)
 
 DESCRIPTION = """\
 Take the best known fit, then ask whether the data can determine each parameter. The best
 known fit is the sweep's reference (the lowest SSR inside the parameter ranges) when
-OUT/sweep.json holds a sweep of the same data, model, ranges and solver settings, else the lowest-SSR fit from the scenario's start over its step factors and
-Levenberg-Marquardt; a warning says when a lower SSR than the audited one is known.
+OUT/sweep.json holds a sweep of the same data, model, ranges and solver settings, else the
+lowest-SSR fit from the scenario's start over its step factors and Levenberg-Marquardt; a
+warning says when a lower SSR than the audited one is known.
 
   singular values   of the weighted Jacobian, raw and with unit-length columns, and the
                     condition numbers; the weakest directions in words, e.g. "tau and dT
@@ -71,7 +72,8 @@ def run(args: argparse.Namespace) -> int:
         def on_step(done: int, total: int) -> None:
             progress.update(task, completed=done, total=total)
 
-        result = identify_scenario(scenario, points=args.profile_points, plan=plan, on_step=on_step, reference=reference)
+        result = identify_scenario(scenario, points=args.profile_points, plan=plan, on_step=on_step,
+                                   reference=reference)
     written = write_results(result, Path(args.out), "identifiability", write_figures)
     if args.json:
         print_json(result.to_dict())

@@ -30,9 +30,9 @@ behind it.
 A stage that cannot run says why and what to do, and the others still run. The thresholds of
 the verdict are listed in the README; change any of them in scenario.toml under [verdict].
 
---quick uses small designs for a first look: {QUICK_POINTS} starts, {QUICK_RESOLUTION} x {QUICK_RESOLUTION} basin maps and
-{QUICK_SAMPLES} bootstrap replicates (the computing then takes seconds; drawing the figures takes
-longer). Without it the scenario's own [sweep] and [bootstrap] settings are used.
+--quick uses small designs for a first look: {QUICK_POINTS} starts, {QUICK_RESOLUTION} x {QUICK_RESOLUTION} basin
+maps and {QUICK_SAMPLES} bootstrap replicates (the computing then takes seconds; drawing the
+figures takes longer). Without it the scenario's own [sweep] and [bootstrap] settings are used.
 
 Writes OUT/{AUDIT_FILE} (every number) and OUT/{FIGURES}/*.png and *.pdf; the sweep's and the
 bootstrap's chunks are cached under OUT/cache, so running again with the same settings (after

@@ -35,8 +35,9 @@ of the residuals is as large as the SSR), the converged fit is refined by Gauss-
 rule uses the refined SSR and the standard deviations rescaled by it. Parameters are always the
 double-precision fit.
 
-Defaults: Levenberg-Marquardt, step factor 1, tolerance {DEFAULTS.tolerance:g}, at most {DEFAULTS.max_iterations} iterations.
-A lab validating its installation runs this once and files the table (or the --json output).
+Defaults: Levenberg-Marquardt, step factor 1, tolerance {DEFAULTS.tolerance:g}, at most
+{DEFAULTS.max_iterations} iterations. A lab validating its installation runs this once and files
+the table (or the --json output).
 
 Exit status: 0 every problem passed from both starts, 1 some did not, 2 bad input."""
 
@@ -54,7 +55,8 @@ def register(subparsers) -> None:
     add_step_factors_option(parser, "1; with several, each start shows its best run and the factors that reached "
                                     "the same verdict")
     parser.add_argument("--tolerance", type=float, default=DEFAULTS.tolerance, metavar="TOL",
-                        help=f"largest relative parameter change that counts as converged (default {DEFAULTS.tolerance:g})")
+                        help="largest relative parameter change that counts as converged "
+                             f"(default {DEFAULTS.tolerance:g})")
     parser.add_argument("--max-iterations", type=int, default=DEFAULTS.max_iterations, metavar="N",
                         help=f"iteration limit per run (default {DEFAULTS.max_iterations})")
     add_json_option(parser)
@@ -109,7 +111,8 @@ def show(report: StrdReport) -> None:
               f"{counts['passed_start2']} of {counts['problems']} from Start 2 "
               f"(needed: parameters ≥ {THRESHOLDS['params']:g}, SSR ≥ {THRESHOLDS['ssr']:g}, "
               f"SDs ≥ {THRESHOLDS['sd']:g} digits)")
-    shown = sorted({int(check.grades.verdict[start, check.best[start]]) for check in report.checks for start in range(2)})
+    shown = sorted({int(check.grades.verdict[start, check.best[start]])
+                    for check in report.checks for start in range(2)})
     for code in shown:
         if code != Verdict.PASS:
             out.print(f"{VERDICT_LABELS[Verdict(code)]}: {VERDICT_MEANINGS[Verdict(code)]}", soft_wrap=True)
@@ -145,7 +148,8 @@ def _footnote(check: ProblemCheck) -> None:
     limited = grades.precision_limited
     out.print(f"* {check.name}: double precision resolves only about {grades.ssr_digits[limited].min():.1f} digits "
               f"of this SSR (certified {check.certified_ssr:.3g}); even at the certified parameters it reproduces "
-              f"only {check.lre_ssr_at_certified:.1f} digits. Its pass rule therefore uses the SSR of the fit refined in "
-              f"{EXTENDED_DIGITS}-digit arithmetic (LRE SSR ext.) and the SDs rescaled by it "
-              f"(LRE {grades.extended_lre_sd[limited].min():.1f}); parameter LREs are those of the double-precision fit.",
+              f"only {check.lre_ssr_at_certified:.1f} digits. Its pass rule therefore uses the SSR of the fit refined "
+              f"in {EXTENDED_DIGITS}-digit arithmetic (LRE SSR ext.) and the SDs rescaled by it "
+              f"(LRE {grades.extended_lre_sd[limited].min():.1f}); parameter LREs are those of the double-precision "
+              "fit.",
               soft_wrap=True)

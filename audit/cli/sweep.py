@@ -136,7 +136,8 @@ def show(result: SweepResult, files: list[Path]) -> None:
             shares = [_share(result.shares[m, f, k]) for k in seen]
             iterations = f"{number(result.iterations_median[m, f, BEST])} / {number(result.iterations_p90[m, f, BEST])}"
             same = (_share(result.curve_shares[m, f]),) if curve else ()
-            table.add_row(method, f"{factor:g}{mark}", *shares, *same, iterations, number(result.region_radius[m, f], 3))
+            table.add_row(method, f"{factor:g}{mark}", *shares, *same, iterations,
+                          number(result.region_radius[m, f], 3))
     print_table(table)
     unseen = [CATEGORIES[k].replace("_", " ") for k in range(len(CATEGORIES)) if k not in seen]
     if unseen:
@@ -165,7 +166,8 @@ def _show_solutions(result: SweepResult) -> None:
     for s in range(listed):
         table.add_row("best" if s == 0 else str(s + 1), number(result.solution_ssr[s], 8),
                       *(number(v, 8) for v in result.solution_params[s]),
-                      f"{np.max(result.solution_shares[..., s]):.1%}", *((shown(relations[s]),) if any(relations) else ()))
+                      f"{np.max(result.solution_shares[..., s]):.1%}",
+                      *((shown(relations[s]),) if any(relations) else ()))
     print_table(table)
     if listed < len(result.solution_ssr):
         outside = int(np.count_nonzero(~result.solution_inside[listed:]))
@@ -194,7 +196,8 @@ def _show_recommendation(result: SweepResult) -> None:
     m, f = result.recommended
     out.print(f"[bold]recommended:[/] {result.methods[m]} with step factor {result.step_factors[f]:g}: "
               f"{result.shares[m, f, BEST]:.1%} of starts reach the best solution in "
-              f"{number(result.iterations_median[m, f, BEST])} iterations (median); {shown(result.recommendation_reason)}",
+              f"{number(result.iterations_median[m, f, BEST])} iterations (median); "
+              f"{shown(result.recommendation_reason)}",
               soft_wrap=True)
     if not np.isfinite(result.region_radius[m, f]):
         err.print(f"[yellow]no safe region:[/] no box around the best fit holding at least "

@@ -373,6 +373,7 @@ def _classify(state: _Working, finish, iteration: int, tol: float) -> None:
     decided = diverged | undefined | settled | oscillating
     if decided.any():
         rows = np.flatnonzero(decided)
-        codes = np.select([diverged[rows], undefined[rows], settled[rows] & state.lost_rank[rows], settled[rows]],
-                          [Outcome.DIVERGED, Outcome.MODEL_ERROR, Outcome.SINGULAR, Outcome.CONVERGED], Outcome.OSCILLATING)
+        conditions = [diverged[rows], undefined[rows], settled[rows] & state.lost_rank[rows], settled[rows]]
+        codes = np.select(conditions, [Outcome.DIVERGED, Outcome.MODEL_ERROR, Outcome.SINGULAR, Outcome.CONVERGED],
+                          Outcome.OSCILLATING)
         finish(decided, codes, iteration)

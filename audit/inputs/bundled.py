@@ -65,6 +65,7 @@ def resolve_scenario(text: Path | str) -> Path:
     if path.name in bundled:
         return bundled[path.name]
     names = sorted(bundled)
-    available = f"; bundled scenarios: {', '.join(names)}" if names else "; this copy of fitaudit has no bundled scenarios"
+    available = (f"; bundled scenarios: {', '.join(names)}" if names
+                 else "; this copy of fitaudit has no bundled scenarios")
     raise InputError(f"{text}: no such scenario folder or file, and no bundled scenario of that name"
                      f"{nearest(path.name, names)}{available}")

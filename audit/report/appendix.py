@@ -144,9 +144,10 @@ def _estimates_section(result) -> Section:
         blocks.append(Paragraph(best.warning, "caution"))
     if result.statement is not None:
         statement = result.statement
-        blocks.append(Paragraph(f"The same uncertainty in the form of the GUM (JCGM 100:2008): standard uncertainty u "
-                                f"from the asymptotic standard error, coverage factor k = {statement.coverage_factor:.4g}"
-                                f" for p = {statement.coverage:.0%}, expanded uncertainty U = k·u."))
+        blocks.append(Paragraph("The same uncertainty in the form of the GUM (JCGM 100:2008): standard uncertainty u "
+                                "from the asymptotic standard error, coverage factor "
+                                f"k = {statement.coverage_factor:.4g} for p = {statement.coverage:.0%}, expanded "
+                                "uncertainty U = k·u."))
         blocks.append(Preformatted("\n".join(statement.lines)))
     return Section("Estimates and intervals", "estimates", tuple(blocks))
 

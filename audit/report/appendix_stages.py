@@ -26,7 +26,8 @@ def derivative_section(result, figures: tuple[Figure, ...]) -> Section:
               Table("Each partial derivative against the reference", ("parameter", "verdict",
                     "largest relative difference", "central differences' difference", "diagnosis"), rows,
                     notes=("Relative to the largest |∂f/∂a| of the column at each point.",))]
-    blocks += [Paragraph(f"∂f/∂{audit.names[j]}: {audit.diagnoses[j].summary}", "caution") for j in audit.wrong_columns]
+    blocks += [Paragraph(f"∂f/∂{audit.names[j]}: {audit.diagnoses[j].summary}", "caution")
+               for j in audit.wrong_columns]
     blocks += [Paragraph(note, "note") for note in audit.notes]
     return Section(title, anchor, tuple(blocks) + figures)
 
@@ -83,8 +84,8 @@ def identifiability_section(result, figures: tuple[Figure, ...]) -> Section:
     profiles = ident.profiles
     rows = tuple((name, interval(profiles.lower[j], profiles.upper[j]), profiles.lower_status[j].replace("_", " "),
                   profiles.upper_status[j].replace("_", " ")) for j, name in enumerate(ident.names))
-    blocks = [Paragraph(f"Condition number of the Jacobian with unit-length columns: {number(ident.condition_scaled, 4)}"
-                        f" (raw: {number(ident.condition_raw, 4)})."),
+    blocks = [Paragraph("Condition number of the Jacobian with unit-length columns: "
+                        f"{number(ident.condition_scaled, 4)} (raw: {number(ident.condition_raw, 4)})."),
               Table(f"Profile intervals at {profiles.confidence:.0%}", ("parameter", "profile interval", "lower end",
                                                                         "upper end"), rows)]
     correlation = np.asarray(ident.estimates.correlation)

@@ -209,7 +209,8 @@ def bootstrap_failure_check(bootstrap, limits: VerdictSettings) -> CheckLine:
     status = grade_above(share, limits.bootstrap_failure_warn, limits.bootstrap_failure_fail)
     return CheckLine("bootstrap refits that fail", status,
                      f"{share:.1%} of {len(bootstrap.replicates.fate)} refits did not reach the best fit's solution "
-                     f"(warn above {limits.bootstrap_failure_warn:.1%}, fail above {limits.bootstrap_failure_fail:.0%})",
+                     f"(warn above {limits.bootstrap_failure_warn:.1%}, "
+                     f"fail above {limits.bootstrap_failure_fail:.0%})",
                      share)
 
 
@@ -240,8 +241,9 @@ def identifiability_checks(result, limits: VerdictSettings) -> list[CheckLine]:
     weak = f"; weakest direction: {result.weak_text[0]}" if len(result.weak_text) else ""
     status = grade_above(condition, limits.condition_warn, limits.condition_fail)
     lines = [CheckLine("condition number", status,
-                       f"{condition:.4g} for the Jacobian with unit-length columns (warn above {limits.condition_warn:g}"
-                       f", fail above {limits.condition_fail:g})" + (weak if status != PASS else ""), condition)]
+                       f"{condition:.4g} for the Jacobian with unit-length columns "
+                       f"(warn above {limits.condition_warn:g}, fail above {limits.condition_fail:g})"
+                       + (weak if status != PASS else ""), condition)]
     correlation = np.array(result.estimates.correlation, dtype=float)
     n = len(correlation)
     if n < 2 or not np.isfinite(correlation).all():

@@ -30,7 +30,8 @@ def recommend_scheme(runs: Check, serial: Check, variance: Check, variance_rank:
                        f"since every scheme assumes independent errors")
     if any(check.status in FLAGGED for check in (variance, variance_rank)):
         if x_random:
-            return PAIRS, "the spread changes with the fitted values and x was drawn at random with y: resample (x, y) pairs"
+            return PAIRS, ("the spread changes with the fitted values and x was drawn at random with y: "
+                           "resample (x, y) pairs")
         return WILD, "the spread changes with the fitted values: wild resampling keeps each point's own residual size"
     if x_random:
         return PAIRS, "x was drawn at random with y: resampling (x, y) pairs reproduces how the data arose"

@@ -35,7 +35,8 @@ def serial_check(ordered: np.ndarray, levels: Levels) -> Check:
     z = (durbin_watson - 2) * math.sqrt(m) / 2
     p_value = float(2 * stats.norm.sf(abs(z)))
     status = levels.grade(p_value)
-    summary = f"Durbin-Watson d = {durbin_watson:.2f} (2 for independent errors; lag-1 autocorrelation {lag1:.2f}, p = {p_value:.2g})"
+    summary = (f"Durbin-Watson d = {durbin_watson:.2f} (2 for independent errors; lag-1 autocorrelation {lag1:.2f}, "
+               f"p = {p_value:.2g})")
     if status not in FLAGGED:
         meaning = "no sign of correlated neighbours"
     elif durbin_watson < 2:

@@ -45,7 +45,8 @@ def runs_check(ordered: np.ndarray, negligible: float, levels: Levels) -> Check:
     exact = positive <= EXACT_LIMIT and negative <= EXACT_LIMIT
     p_value = runs_p_value(runs, positive, negative) if exact else float(2 * stats.norm.sf(abs(z)))
     status = levels.grade(p_value)
-    summary = f"{runs} runs of signs along x where {expected:.1f} are expected for independent errors (p = {p_value:.2g})"
+    summary = (f"{runs} runs of signs along x where {expected:.1f} are expected for independent errors "
+               f"(p = {p_value:.2g})")
     if status not in FLAGGED:
         meaning = "no pattern along x"
     elif runs < expected:

@@ -37,8 +37,8 @@ def spread_checks(weighted: np.ndarray, fitted: np.ndarray, levels: Levels) -> t
     status = levels.grade(p_value)
     meaning = ("the spread changes with the fitted values" if status in FLAGGED
                else "no sign that the spread changes with the fitted values")
-    variance = Check(name="variance", statistic=statistic, p_value=p_value, status=status,
-                     finding=f"Breusch-Pagan m·R² = {statistic:.3g} (chi-square, 1 dof, p = {p_value:.2g}): {meaning}",
+    finding = f"Breusch-Pagan m·R² = {statistic:.3g} (chi-square, 1 dof, p = {p_value:.2g}): {meaning}"
+    variance = Check(name="variance", statistic=statistic, p_value=p_value, status=status, finding=finding,
                      details={"r_squared": r_squared})
 
     rank = stats.spearmanr(sizes, fitted)
@@ -48,6 +48,6 @@ def spread_checks(weighted: np.ndarray, fitted: np.ndarray, levels: Levels) -> t
         rank_meaning = "no trend in the residuals' size"
     else:
         rank_meaning = f"the residuals' size {'grows' if rho > 0 else 'shrinks'} as the fitted values grow"
-    variance_rank = Check(name="variance_rank", statistic=rho, p_value=rank_p, status=rank_status,
-                          finding=f"rank correlation of |residual| with fitted value {rho:.2f} (p = {rank_p:.2g}): {rank_meaning}")
+    finding = f"rank correlation of |residual| with fitted value {rho:.2f} (p = {rank_p:.2g}): {rank_meaning}"
+    variance_rank = Check(name="variance_rank", statistic=rho, p_value=rank_p, status=rank_status, finding=finding)
     return variance, variance_rank

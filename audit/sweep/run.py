@@ -275,7 +275,8 @@ class _Sweep:
         advice = "" if recommended is not None else next_step(self.problem, self.scenario.start, tally.counts,
                                                                int(np.count_nonzero(~solution_inside)))
         return SweepResult(
-            names=space.names, fingerprint=solutions_fingerprint(self.scenario), lower=space.lower, upper=space.upper, log=space.log, design=request.design,
+            names=space.names, fingerprint=solutions_fingerprint(self.scenario), lower=space.lower, upper=space.upper,
+            log=space.log, design=request.design,
             points=starts, seed=request.seed, step_factors=np.array(request.step_factors), methods=request.methods,
             tolerance=request.tolerance, max_iterations=request.max_iterations, counts=tally.counts, shares=shares,
             iterations_median=median, iterations_p90=p90, solution_params=merged.params, solution_ssr=merged.ssr,
