@@ -132,7 +132,8 @@ def test_a_lower_fit_from_the_start_inside_the_ranges_replaces_a_coarse_sweeps_r
     reference = SweepReference(params=local, ssr=local_ssr, lower=np.array([0.1, 0.2, -3.0]),
                                upper=np.array([5.0, 4.0, 3.0]), outside_params=np.empty((0, 3)),
                                outside_ssr=np.empty(0))
-    known = best_known_fit(scenario.problem, np.array(NEAR_OPTIMUM), **scenario.solver.fit_options(), reference=reference)
+    known = best_known_fit(scenario.problem, np.array(NEAR_OPTIMUM), **scenario.solver.fit_options(),
+                           reference=reference)
     # Reference: scipy.optimize.least_squares from near the optimum.
     assert known.source == FROM_START and known.params == pytest.approx(optimum, rel=1e-6)
     assert known.ssr == pytest.approx(optimum_ssr, rel=1e-9)

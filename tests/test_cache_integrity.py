@@ -49,7 +49,8 @@ def test_a_changed_helper_module_of_the_model_reuses_no_chunk(write_scenario, tm
     expected = reference_fit(lambda x, a, b: a / (1 + b * x), scenario)
     np.testing.assert_allclose(second.best_params, expected, rtol=1e-6)
     # ... and the first sweep's best fit was the exponential's (same reference, old curve).
-    np.testing.assert_allclose(first.best_params, reference_fit(lambda x, a, b: a * np.exp(-b * x), scenario), rtol=1e-6)
+    np.testing.assert_allclose(first.best_params, reference_fit(lambda x, a, b: a * np.exp(-b * x), scenario),
+                               rtol=1e-6)
 
 
 @pytest.fixture
@@ -86,7 +87,8 @@ def test_a_damaged_chunk_is_recomputed_and_the_result_unchanged(swept, damage):
     repaired = run_sweep(scenario, request, ParallelPlan(jobs=1), out)
     assert repaired.chunks["computed"] == 1 and repaired.chunks["reused"] == first.chunks["total"] - 1
     # Reference: scipy.optimize.least_squares on the exponential curve.
-    np.testing.assert_allclose(repaired.best_params, reference_fit(lambda x, a, b: a * np.exp(-b * x), scenario), rtol=1e-6)
+    np.testing.assert_allclose(repaired.best_params, reference_fit(lambda x, a, b: a * np.exp(-b * x), scenario),
+                               rtol=1e-6)
     np.testing.assert_array_equal(repaired.shares, first.shares)
 
 

@@ -101,7 +101,8 @@ def test_a_bca_interval_defined_at_one_end_only_is_not_used():
     # percentile [0.5, 1.5] around 1 against the t interval [0, 2]: width ratio 1/2, arms 1 (hand).
     nan = np.nan
     result = compare_intervals(("a", "b"), np.array([1.0, 1.0]), np.array([0.0, 0.0]), np.array([2.0, 2.0]),
-                               (np.array([0.5, 0.5]), np.array([1.5, 1.5])), (np.array([0.2, nan]), np.array([nan, 1.9])),
+                               (np.array([0.5, 0.5]), np.array([1.5, 1.5])),
+                               (np.array([0.2, nan]), np.array([nan, 1.9])),
                                np.ones(2), np.zeros(2), np.ones((3, 2)))
     assert result.compared == ("percentile", "percentile")
     assert result.lower.tolist() == [0.5, 0.5] and result.upper.tolist() == [1.5, 1.5]
@@ -146,7 +147,8 @@ def test_an_interval_ending_at_the_estimate_from_above_does_not_contain_it_eithe
     result = comparison(estimate=[1.0], t_lower=[0.5], t_upper=[1.5], lower=[0.0], upper=[1.0])
     assert np.isnan(result.arm_ratio[0])
     assert result.flags == [Flag("a", "asymmetry",
-                                 "the BCa interval [0, 1] does not contain the estimate 1: the refits are strongly biased")]
+                                 "the BCa interval [0, 1] does not contain the estimate 1: "
+                                 "the refits are strongly biased")]
 
 
 def test_an_interval_missing_either_end_raises_no_flag():
@@ -168,5 +170,6 @@ def test_words_follow_the_side_just_past_a_limit_and_the_lower_arm_limit_is_incl
     assert [(flag.parameter, flag.kind) for flag in result.flags] == [("a", "width"), ("b", "asymmetry")]
     assert result.flags[0].reason == ("the BCa interval is 1.80 times as wide as the t interval: the linearised "
                                       "standard error understates the spread of the refits")
-    assert result.flags[1].reason.startswith("the BCa interval reaches 1.80 times as far above the estimate as below it")
+    assert result.flags[1].reason.startswith(
+        "the BCa interval reaches 1.80 times as far above the estimate as below it")
     assert result.arm_ratio[2] == 1 / 1.5

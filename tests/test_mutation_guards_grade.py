@@ -14,7 +14,8 @@ import pytest
 from audit.engine.batch import BatchFit
 from audit.engine.outcomes import Outcome
 from audit.errors import InputError
-from audit.validation.grade import Verdict, _std_errors, _verdicts, grade_runs, lre_ssr_at_certified, reference_model, verdict_label
+from audit.validation.grade import (Verdict, _std_errors, _verdicts, grade_runs, lre_ssr_at_certified, reference_model,
+                                    verdict_label)
 from audit.validation.reference import log_relative_error
 
 CERTIFIED_SSR = 10.0

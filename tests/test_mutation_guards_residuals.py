@@ -78,7 +78,8 @@ def test_alternating_signs_are_too_many_runs():
     # Exact distribution (Swed & Eisenhart 1943): only 2 of C(20, 10) orderings alternate fully,
     # so the two-sided p is 2·2/C(20, 10).
     assert check.p_value == pytest.approx(4 / math.comb(20, 10), rel=1e-12, abs=0)
-    assert check.finding.endswith("too many: the signs alternate more than chance allows (negatively correlated errors)")
+    assert check.finding.endswith(
+        "too many: the signs alternate more than chance allows (negatively correlated errors)")
 
 
 def test_a_variance_below_one_still_gives_z():
@@ -192,7 +193,8 @@ def test_constant_spread_is_named_and_a_unit_range_still_runs():
 
 
 @pytest.mark.parametrize("weighted, fitted, reason", [
-    (np.array([1.0, -2.0, 3.0]), np.full(3, 2.0), "every fitted value is the same, so there is nothing to relate the spread to"),
+    (np.array([1.0, -2.0, 3.0]), np.full(3, 2.0),
+     "every fitted value is the same, so there is nothing to relate the spread to"),
     (np.array([1.0, -1.0, 1.0]), np.arange(3.0), "every residual has the same size, so the spread cannot change"),
 ])
 def test_spread_checks_that_cannot_run_say_why(weighted, fitted, reason):

@@ -114,7 +114,8 @@ def test_weights_turn_the_same_spread_into_constant_variance():
 
     scaled = residuals * np.sqrt(weights)  # weighted residuals r·sqrt(w), by definition
     np.testing.assert_allclose(result.weighted_residuals, scaled, rtol=1e-14)
-    assert result.normality.statistic == pytest.approx(stats.shapiro(scaled).statistic, rel=1e-12)  # scipy.stats.shapiro
+    # Reference: scipy.stats.shapiro.
+    assert result.normality.statistic == pytest.approx(stats.shapiro(scaled).statistic, rel=1e-12)
     assert result.variance.status == "pass" and result.variance_rank.status == "pass"
     assert result.scheme == "residual"
 
@@ -176,7 +177,8 @@ def test_residuals_of_one_sign_leave_the_runs_test_not_applicable_but_the_rest_r
     result = check_residuals(residuals, 2 * x, x, n_params=1)
     assert result.runs.status == "not applicable" and "same sign" in result.runs.finding
     assert result.normality.status != "not applicable"
-    assert result.normality.statistic == pytest.approx(stats.shapiro(residuals).statistic, rel=1e-12)  # scipy.stats.shapiro
+    # Reference: scipy.stats.shapiro.
+    assert result.normality.statistic == pytest.approx(stats.shapiro(residuals).statistic, rel=1e-12)
 
 
 def test_status_follows_the_levels_given():

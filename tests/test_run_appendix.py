@@ -105,7 +105,8 @@ def test_tables_hold_the_json_numbers(hostile_run):
     markdown = (hostile_run / "appendix.md").read_text(encoding="utf-8")
     estimates = markdown[markdown.index("Estimates with"):]
     for name, value in payload["best_fit"]["params"].items():
-        row = next(line for line in estimates.splitlines() if line.startswith(f"| {name.replace('_', chr(92) + '_')} |"))
+        escaped = name.replace('_', chr(92) + '_')
+        row = next(line for line in estimates.splitlines() if line.startswith(f"| {escaped} |"))
         printed = float(row.split("|")[2])
         assert printed == pytest.approx(value, rel=1e-7), name
     for check in payload["verdict"]["checks"]:

@@ -105,7 +105,8 @@ def test_the_package_listing_ships_every_subpackage_and_the_scenarios():
     # The bundled scenarios need an explicit package list (pyproject.toml says why); a new
     # subpackage of audit/ missing from it would be left out of every installed copy.
     config = tomllib.loads((PROJECT / "pyproject.toml").read_text())["tool"]["setuptools"]
-    subpackages = {".".join(path.parent.relative_to(PROJECT).parts) for path in (PROJECT / "audit").rglob("__init__.py")}
+    subpackages = {".".join(path.parent.relative_to(PROJECT).parts)
+                   for path in (PROJECT / "audit").rglob("__init__.py")}
     assert subpackages | {"audit.bundled"} == set(config["packages"])
     assert config["package-dir"]["audit.bundled"] == "scenarios"
     shipped = config["package-data"]["audit.bundled"]

@@ -79,7 +79,8 @@ def test_the_pass_rule_is_nists_bar_of_6_6_and_4_digits(nist):
     fitted = reference_model(reference)
     runs = len(shifts)
     fit = BatchFit(params=params, ssr=np.array([misra1a_by_hand(p, reference.x, reference.y)[0] for p in params]),
-                   iterations=np.ones(runs, int), outcome=np.full(runs, Outcome.CONVERGED), max_rel_change=np.zeros(runs),
+                   iterations=np.ones(runs, int), outcome=np.full(runs, Outcome.CONVERGED),
+                   max_rel_change=np.zeros(runs),
                    step_factor=np.ones(runs), names=reference.names, method="lm")
     grades = grade_runs(fitted, fit)
     expected = []

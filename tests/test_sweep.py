@@ -238,7 +238,8 @@ def test_figures_are_drawn_once_per_result_and_as_pdf_only_when_asked(twin_folde
     assert write_figures(result, tmp_path / "figures") == write_figures(rerun, tmp_path / "figures") == paths
     assert [path.stat().st_mtime_ns for path in paths] == drawn   # not drawn again
     with_pdf = write_figures(result, tmp_path / "figures", formats=("png", "pdf"))
-    assert sorted(path.name for path in with_pdf) == sorted(f"{stem}.{kind}" for stem in stems for kind in ("png", "pdf"))
+    assert sorted(path.name for path in with_pdf) == sorted(f"{stem}.{kind}" for stem in stems
+                                                            for kind in ("png", "pdf"))
 
 
 def test_figures_drawn_by_worker_processes_equal_those_drawn_here(twin_folder, tmp_path):

@@ -40,7 +40,8 @@ def main() -> None:
     args = parser.parse_args()
     scenario = load_scenario(SCENARIO)
     problem = scenario.problem
-    points = check_points(problem, scenario.parameters, scenario.solver, args.check_points, scenario.derivatives.seed).params
+    points = check_points(problem, scenario.parameters, scenario.solver, args.check_points,
+                          scenario.derivatives.seed).params
 
     audit_seconds, audit = best_of(args.repeats, lambda: audit_derivatives(scenario, args.check_points))
     batched_seconds, batched = best_of(args.repeats, lambda: numeric_derivatives(problem, points))
