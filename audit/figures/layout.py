@@ -100,13 +100,13 @@ def text_size(artist, renderer) -> tuple[float, float]:
     return box.width / DPI, box.height / DPI
 
 
-def heading(figure, text: str, renderer, fontsize: float) -> float:
+def heading(figure, text: str, renderer, fontsize: float | str) -> float:
     """The figure's heading at its top edge; the inches it takes there, its gap included."""
     title = figure.suptitle(text, fontsize=fontsize, y=1 - EDGE / figure.get_figheight(), va="top")
     return text_size(title, renderer)[1] + GAP
 
 
-def legend_below(figure, handles: list, columns: int, renderer, fontsize: float = 8.0):
+def legend_below(figure, handles: list, columns: int, renderer, fontsize: float | str = 8.0):
     """A figure legend centred on the figure's bottom edge, with fewer columns than ``columns``
     where its measured width would not fit: (legend, inches it takes there, its gap included)."""
     width = figure.get_figwidth() - 2 * EDGE
