@@ -151,15 +151,15 @@ def _fix_ticks(locators: dict) -> bool:
     return changed
 
 
-def _axis_room(axis, renderer, across: int, *, estimate: bool = False) -> tuple[float, float, float]:
-    """(room taken by the ticks and tick labels, by the label, by the offset text) of one axis, in
-    inches, measured ``across`` the axis (0: widths, for a y axis; 1: heights, for an x axis); the
-    offset text's is its height and pad. With ``estimate`` the labels the locator would give now are
-    measured as loose texts, without making tick objects."""
+def _axis_room(axis, renderer, across: int, *, estimate: bool = False) -> tuple[float, float]:
+    """(room taken by the ticks and tick labels, by the label) of one axis, in inches, measured
+    ``across`` the axis (0: widths, for a y axis; 1: heights, for an x axis). With ``estimate`` the
+    labels the locator would give now are measured as loose texts, without making tick objects.
+    The axis's formatter is left with those labels' offset text (``_offset_size``)."""
     first = axis.majorTicks[0]      # made with the axis: its label's font and visibility are the axis's
     locations = _in_view(axis)
     if estimate:
-        texts = axis.get_major_formatter().format_ticks(locations) if len(locations) else []
+        texts = axis.get_major_formatter().format_ticks(locations)
         shown = texts if first.label1.get_visible() else []
         widest = max((_loose_text_size(text, first.label1, renderer)[across] for text in shown), default=0.0)
     else:
@@ -168,9 +168,15 @@ def _axis_room(axis, renderer, across: int, *, estimate: bool = False) -> tuple[
     if len(locations):
         ticks = first.get_tick_padding() / 72 + (widest + first.get_pad() / 72 if widest else 0.0)
     label = text_size(axis.label, renderer)[across]
-    offset = axis.get_major_formatter().get_offset() if axis.offsetText.get_visible() and len(locations) else ""
-    offset_room = axis.OFFSETTEXTPAD / 72 + _loose_text_size(offset, axis.offsetText, renderer)[1] if offset else 0.0
-    return ticks, label + axis.labelpad / 72 if label else 0.0, offset_room
+    return ticks, label + axis.labelpad / 72 if label else 0.0
+
+
+def _offset_size(axis, renderer) -> tuple[float, float]:
+    """(width, height) in inches of the offset text (a multiplier such as 1e−6) matplotlib will draw
+    beside ``axis``'s tick labels, as its formatter last labelled them; (0, 0) where there is none."""
+    if not axis.offsetText.get_visible():
+        return 0.0, 0.0
+    return _loose_text_size(axis.get_major_formatter().get_offset(), axis.offsetText, renderer)
 
 
 def _loose_text_size(text: str, like, renderer) -> tuple[float, float]:
@@ -191,13 +197,28 @@ def decorations(axes, renderer, *, estimate: bool = False) -> Decorations:
     """The room one panel's tick labels, axis labels, offset texts and titles take outside its frame
     (``estimate``: see ``_axis_room``; the labels' spill past the frame's sides is measured only once
     the panel has a place, without ``estimate``)."""
-    y_ticks, y_label, y_offset = _axis_room(axes.yaxis, renderer, 0, estimate=estimate)
-    x_ticks, x_label, x_offset = _axis_room(axes.xaxis, renderer, 1, estimate=estimate)
-    title = max((text_size(text, renderer)[1] for text in _titles(axes).values()), default=0.0)
-    # A title meeting the y offset text goes on top of it (``_fix_titles``): room for both, as they may.
-    titles = y_offset + title if y_offset else (title + rcParams["axes.titlepad"] / 72 if title else 0.0)
+    y_ticks, y_label = _axis_room(axes.yaxis, renderer, 0, estimate=estimate)
+    x_ticks, x_label = _axis_room(axes.xaxis, renderer, 1, estimate=estimate)
+    x_offset = _offset_size(axes.xaxis, renderer)[1]
+    x_offset += axes.xaxis.OFFSETTEXTPAD / 72 if x_offset else 0.0
     spill = (0.0, 0.0, 0.0, 0.0) if estimate else _spill(axes, renderer)
-    return Decorations(y_ticks, y_label, x_ticks, x_label, x_offset, titles, spill)
+    return Decorations(y_ticks, y_label, x_ticks, x_label, x_offset, _titles_room(axes, renderer), spill)
+
+
+def _titles_room(axes, renderer) -> float:
+    """Inches the panel's titles and its y axis's offset text take above its frame: the titles at
+    the title pad, the offset text at its own pad, or the titles on top of it where one meets it
+    (``_fix_titles``), judged where the panel is now."""
+    titles = [title.get_window_extent(renderer) for title in _titles(axes).values()]
+    title = max((box.height for box in titles), default=0.0) / DPI
+    room = title + rcParams["axes.titlepad"] / 72 if title else 0.0
+    width, height = _offset_size(axes.yaxis, renderer)
+    if not height:
+        return room
+    offset = axes.yaxis.OFFSETTEXTPAD / 72 + height
+    frame = axes.get_window_extent(renderer)
+    meets = any(box.x0 < frame.x0 + width * DPI and box.x1 > frame.x0 for box in titles)
+    return offset + title if meets else max(room, offset)
 
 
 def _spill(axes, renderer) -> tuple[float, float, float, float]:
@@ -290,17 +311,15 @@ def _fix_titles(axes, renderer) -> None:
     titles = _titles(axes)
     if not titles:
         return
-    offset = axes.yaxis.get_major_formatter().get_offset() if axes.yaxis.offsetText.get_visible() else ""
+    width, height = _offset_size(axes.yaxis, renderer)
     frame = axes.get_window_extent(renderer)
+    top = frame.y1 + axes.yaxis.OFFSETTEXTPAD * DPI / 72 + height * DPI      # of the offset text, in pixels
     lifts = [0.0]
     for loc, title in titles.items():
         _set_title(axes, loc, title, 1.0)
-        if offset:
-            width, height = _loose_text_size(offset, axes.yaxis.offsetText, renderer)
-            low = frame.y1 + axes.yaxis.OFFSETTEXTPAD * DPI / 72
-            box = title.get_window_extent(renderer)
-            if box.x0 < frame.x0 + width * DPI and box.x1 > frame.x0 and box.y0 < low + height * DPI:
-                lifts.append((low + height * DPI - box.y0) / frame.height)
+        box = title.get_window_extent(renderer)
+        if height and box.x0 < frame.x0 + width * DPI and box.x1 > frame.x0 and box.y0 < top:
+            lifts.append((top - box.y0) / frame.height)
     if max(lifts) > 0:
         for loc, title in titles.items():
             _set_title(axes, loc, title, 1.0 + max(lifts))
@@ -322,7 +341,7 @@ def colorbar_beside(figure, image, label: str, height: float, width: float = COL
 
 def colorbar_room(bar, renderer, gap: float = COLORBAR_GAP) -> float:
     """Inches a colour bar takes right of the panels, ``gap`` included: the ``right`` of ``arrange``."""
-    ticks, label, _ = _axis_room(bar.ax.yaxis, renderer, 0)
+    ticks, label = _axis_room(bar.ax.yaxis, renderer, 0)
     width = bar.ax.get_position().width * bar.ax.get_figure(root=True).get_figwidth()
     return gap + width + ticks + label
 
@@ -340,5 +359,5 @@ def place_colorbar(figure, grid: np.ndarray, bar, renderer, gap: float = COLORBA
     if aspect is not None:
         bar_width = min(bar_width, span * height / aspect)
     bar.ax.set_position((right + gap / width, low + (high - low - span) / 2, bar_width / width, span))
-    ticks, _, _ = _axis_room(bar.ax.yaxis, renderer, 0)
+    ticks, _ = _axis_room(bar.ax.yaxis, renderer, 0)
     bar.ax.yaxis.set_label_coords(1 + (ticks + bar.ax.yaxis.labelpad / 72) / bar_width, 0.5)
