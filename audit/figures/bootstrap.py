@@ -97,7 +97,8 @@ def _finish(figure, axes, title: str, handles: list, columns: int) -> None:
 def _histogram_panel(ax, result: BootstrapResult, values: np.ndarray, j: int, kinds: list[str]) -> None:
     estimate = result.best[j]
     t_error = result.asymptotic.std_errors[j]
-    heights, _, _ = ax.hist(values, bins="auto", density=True, color=EMPIRICAL, alpha=0.35, linewidth=0)
+    heights, _, _ = ax.hist(values, bins="auto", density=True, histtype="stepfilled", color=EMPIRICAL, alpha=0.35,
+                            linewidth=0)
     ends = [values.min(), values.max()]
     if np.isfinite(t_error) and t_error > 0:
         ends += [result.asymptotic.lower[j], result.asymptotic.upper[j]]
