@@ -7,17 +7,23 @@ Cases: the quick audits of two bundled scenarios, drawn as ``fitaudit run`` draw
 with an offset text between them, colour bars beside a heat map and a square correlation map) and
 spectrometer-peak (five parameters: two rows with a hidden panel, a 4 × 4 pairs plot with its upper
 half hidden, profile SSR in the ten thousands, so that every profile panel has a "1e4" offset text
-beside its right-hand title). Two small figures then make the layout meet what the audits may not:
+beside its right-hand title), and the identifiability stage of a quartic fitted to x in [0, 2]
+(its powers nearly collinear: two weak directions side by side under long wrapped titles,
+collinearity bars past the limit). Two small figures then make the layout meet what these may not:
 a title long enough to meet an offset text, and tick labels on the edges of neighbouring panels.
 """
 from __future__ import annotations
 
+import numpy as np
 import pytest
 from figure_checks import layout_faults, placed_texts
 from gallery_audit import quick_audit
 
+from audit import Problem
 from audit.figures import bootstrap, derivatives, fit, identifiability, layout, residuals, sweep_charts, sweep_maps
 from audit.figures.style import plt
+from audit.identifiability.analysis import analyse
+from audit.inputs.settings import IdentifiabilitySettings
 
 STAGE_MODULES = (derivatives, identifiability, bootstrap, residuals, fit)
 STAGE_FIGURES = {"derivatives-columns", "derivatives-points", "identifiability-profiles",
@@ -31,21 +37,25 @@ def close_figures():
     plt.close("all")
 
 
+def keeper(figures: dict):
+    """A ``save`` that keeps each figure in ``figures`` by stem instead of saving it."""
+    def keep(figure, folder, stem, formats=("png",)):
+        figures[stem] = figure
+        return []
+    return keep
+
+
 def stage_figures(name: str, folder, monkeypatch) -> dict:
     """The stages' figures of the quick audit of bundled scenario ``name``, kept before saving:
     stem -> figure (the sweep's are drawn but not kept: test_figure_layout.py checks them)."""
     figures: dict = {}
-
-    def keep(figure, folder, stem, formats=("png",)):
-        figures[stem] = figure
-        return []
 
     def drop(figure, folder, stem, formats=("png",)):
         plt.close(figure)
         return []
 
     for module in STAGE_MODULES:
-        monkeypatch.setattr(module, "save", keep)
+        monkeypatch.setattr(module, "save", keeper(figures))
     for module in (sweep_charts, sweep_maps):
         monkeypatch.setattr(module, "save", drop)
     quick_audit(name).write_figures(folder)
@@ -58,6 +68,23 @@ def test_stage_figures_keep_every_text_inside_and_apart(name, monkeypatch, tmp_p
     assert set(figures) == STAGE_FIGURES
     faults = {stem: layout_faults(figure) for stem, figure in figures.items()}
     assert not {stem: found for stem, found in faults.items() if found}
+
+
+def test_identifiability_figures_of_a_nearly_collinear_quartic_keep_every_text_inside_and_apart(monkeypatch,
+                                                                                                tmp_path):
+    x = np.linspace(0.0, 2.0, 30)
+    names = tuple(f"c{k}" for k in range(5))
+    columns = np.column_stack([x**k for k in range(5)])
+    y = columns @ np.ones(5) + 0.05 * np.random.default_rng(2).standard_normal(x.size)
+    result = analyse(Problem(lambda x, *c: sum(ck * x**k for k, ck in enumerate(c)), x, y, names),
+                     np.linalg.lstsq(columns, y, rcond=None)[0], lower=np.full(5, np.nan), upper=np.full(5, np.nan),
+                     log_axis=np.zeros(5, bool), settings=IdentifiabilitySettings(profile_points=5))
+    figures: dict = {}
+    monkeypatch.setattr(identifiability, "save", keeper(figures))
+    identifiability.write_figures(result, tmp_path)
+    assert sum(axes.get_visible() for axes in figures["identifiability-weak-directions"].axes) == len(result.weak) == 2
+    faults = {stem: layout_faults(figure) for stem, figure in figures.items()}
+    assert len(faults) == 4 and not {stem: found for stem, found in faults.items() if found}
 
 
 def test_the_spectrometer_profiles_have_offset_texts_and_panels_in_two_rows(monkeypatch, tmp_path):
