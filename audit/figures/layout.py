@@ -139,9 +139,12 @@ def _fix_ticks(locators: dict) -> bool:
     map's ticks). Ticks the figure fixed itself are kept as they are: a fixed formatter labels them
     by position."""
     changed = False
+    checked = set()
     for axis, locator in locators.items():
-        if isinstance(locator, FixedLocator):
+        # Axes sharing an axis share its ticker (locator and formatter): one of them is asked.
+        if isinstance(locator, FixedLocator) or id(axis.major) in checked:
             continue
+        checked.add(id(axis.major))
         locator.set_axis(axis)          # axes sharing it take turns: each is asked for its own view and size
         shown = _in_view(axis, locator)
         now = axis.get_major_locator()
@@ -151,19 +154,20 @@ def _fix_ticks(locators: dict) -> bool:
     return changed
 
 
-def _axis_room(axis, renderer, across: int, *, estimate: bool = False) -> tuple[float, float]:
+def _axis_room(axis, renderer, across: int, boxes=None) -> tuple[float, float]:
     """(room taken by the ticks and tick labels, by the label) of one axis, in inches, measured
-    ``across`` the axis (0: widths, for a y axis; 1: heights, for an x axis). With ``estimate`` the
-    labels the locator would give now are measured as loose texts, without making tick objects.
-    The axis's formatter is left with those labels' offset text (``_offset_size``)."""
+    ``across`` the axis (0: widths, for a y axis; 1: heights, for an x axis), its tick labels'
+    extents being ``boxes`` (``_label_boxes``). Without ``boxes``, an estimate: the labels the
+    locator would give now are measured as loose texts, without making tick objects. The axis's
+    formatter is left with the labels' offset text (``_offset_size``)."""
     first = axis.majorTicks[0]      # made with the axis: its label's font and visibility are the axis's
     locations = _in_view(axis)
-    if estimate:
+    if boxes is None:
         texts = axis.get_major_formatter().format_ticks(locations)
         shown = texts if first.label1.get_visible() else []
         widest = max((_loose_text_size(text, first.label1, renderer)[across] for text in shown), default=0.0)
     else:
-        widest = max((text_size(label, renderer)[across] for label in axis.get_ticklabels()), default=0.0)
+        widest = max(((box.width, box.height)[across] / DPI for box in boxes), default=0.0)
     ticks = 0.0
     if len(locations):
         ticks = first.get_tick_padding() / 72 + (widest + first.get_pad() / 72 if widest else 0.0)
@@ -171,12 +175,17 @@ def _axis_room(axis, renderer, across: int, *, estimate: bool = False) -> tuple[
     return ticks, label + axis.labelpad / 72 if label else 0.0
 
 
+def _label_boxes(axis, renderer) -> list:
+    """The extents (pixels) of ``axis``'s shown tick labels where the panel is now, labelled by its
+    formatter as they will be drawn."""
+    return [label.get_window_extent(renderer) for label in axis.get_ticklabels() if label.get_text()]
+
+
 def _offset_size(axis, renderer) -> tuple[float, float]:
     """(width, height) in inches of the offset text (a multiplier such as 1e−6) matplotlib will draw
     beside ``axis``'s tick labels, as its formatter last labelled them; (0, 0) where there is none."""
-    if not axis.offsetText.get_visible():
-        return 0.0, 0.0
-    return _loose_text_size(axis.get_major_formatter().get_offset(), axis.offsetText, renderer)
+    offset = axis.get_major_formatter().get_offset() if axis.offsetText.get_visible() else ""
+    return _loose_text_size(offset, axis.offsetText, renderer) if offset else (0.0, 0.0)
 
 
 def _loose_text_size(text: str, like, renderer) -> tuple[float, float]:
@@ -195,13 +204,20 @@ def _titles(axes) -> dict[str, Text]:
 
 def decorations(axes, renderer, *, estimate: bool = False) -> Decorations:
     """The room one panel's tick labels, axis labels, offset texts and titles take outside its frame
-    (``estimate``: see ``_axis_room``; the labels' spill past the frame's sides is measured only once
-    the panel has a place, without ``estimate``)."""
-    y_ticks, y_label = _axis_room(axes.yaxis, renderer, 0, estimate=estimate)
-    x_ticks, x_label = _axis_room(axes.xaxis, renderer, 1, estimate=estimate)
+    (``estimate``: the tick labels the locators would give now, measured as loose texts, and no
+    spill past the frame's sides, which is measured only once the panel has a place)."""
+    if estimate:
+        y_ticks, y_label = _axis_room(axes.yaxis, renderer, 0)
+        x_ticks, x_label = _axis_room(axes.xaxis, renderer, 1)
+        spill = (0.0, 0.0, 0.0, 0.0)
+    else:
+        axes.apply_aspect()         # where a fixed aspect shrinks the panel, its labels move with it
+        along, across = _label_boxes(axes.yaxis, renderer), _label_boxes(axes.xaxis, renderer)
+        y_ticks, y_label = _axis_room(axes.yaxis, renderer, 0, along)
+        x_ticks, x_label = _axis_room(axes.xaxis, renderer, 1, across)
+        spill = _spill(axes.get_window_extent(renderer), across, along)
     x_offset = _offset_size(axes.xaxis, renderer)[1]
     x_offset += axes.xaxis.OFFSETTEXTPAD / 72 if x_offset else 0.0
-    spill = (0.0, 0.0, 0.0, 0.0) if estimate else _spill(axes, renderer)
     return Decorations(y_ticks, y_label, x_ticks, x_label, x_offset, _titles_room(axes, renderer), spill)
 
 
@@ -221,13 +237,9 @@ def _titles_room(axes, renderer) -> float:
     return offset + title if meets else max(room, offset)
 
 
-def _spill(axes, renderer) -> tuple[float, float, float, float]:
-    """How far (inches) the x tick labels reach left and right of the panel's frame, and the y tick
-    labels below and above it, where the panel is now."""
-    axes.apply_aspect()
-    frame = axes.get_window_extent(renderer)
-    across = [label.get_window_extent(renderer) for label in axes.xaxis.get_ticklabels()]
-    along = [label.get_window_extent(renderer) for label in axes.yaxis.get_ticklabels()]
+def _spill(frame, across: list, along: list) -> tuple[float, float, float, float]:
+    """How far (inches) the x tick labels (extents ``across``) reach left and right of the panel's
+    ``frame``, and the y tick labels (``along``) below and above it (all in pixels)."""
     reach = (max((frame.x0 - box.x0 for box in across), default=0.0),
              max((box.x1 - frame.x1 for box in across), default=0.0),
              max((frame.y0 - box.y0 for box in along), default=0.0),
@@ -317,8 +329,8 @@ def _fix_titles(axes, renderer) -> None:
     lifts = [0.0]
     for loc, title in titles.items():
         _set_title(axes, loc, title, 1.0)
-        box = title.get_window_extent(renderer)
-        if height and box.x0 < frame.x0 + width * DPI and box.x1 > frame.x0 and box.y0 < top:
+        box = title.get_window_extent(renderer) if height else None
+        if box is not None and box.x0 < frame.x0 + width * DPI and box.x1 > frame.x0 and box.y0 < top:
             lifts.append((top - box.y0) / frame.height)
     if max(lifts) > 0:
         for loc, title in titles.items():
@@ -341,7 +353,7 @@ def colorbar_beside(figure, image, label: str, height: float, width: float = COL
 
 def colorbar_room(bar, renderer, gap: float = COLORBAR_GAP) -> float:
     """Inches a colour bar takes right of the panels, ``gap`` included: the ``right`` of ``arrange``."""
-    ticks, label = _axis_room(bar.ax.yaxis, renderer, 0)
+    ticks, label = _axis_room(bar.ax.yaxis, renderer, 0, _label_boxes(bar.ax.yaxis, renderer))
     width = bar.ax.get_position().width * bar.ax.get_figure(root=True).get_figwidth()
     return gap + width + ticks + label
 
@@ -359,5 +371,5 @@ def place_colorbar(figure, grid: np.ndarray, bar, renderer, gap: float = COLORBA
     if aspect is not None:
         bar_width = min(bar_width, span * height / aspect)
     bar.ax.set_position((right + gap / width, low + (high - low - span) / 2, bar_width / width, span))
-    ticks, _ = _axis_room(bar.ax.yaxis, renderer, 0)
+    ticks, _ = _axis_room(bar.ax.yaxis, renderer, 0, _label_boxes(bar.ax.yaxis, renderer))
     bar.ax.yaxis.set_label_coords(1 + (ticks + bar.ax.yaxis.labelpad / 72) / bar_width, 0.5)
