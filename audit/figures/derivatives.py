@@ -33,8 +33,8 @@ ERROR_MAP = LinearSegmentedColormap.from_list("fitaudit_error", ["#f4f1ea", "#9f
 SMALLEST, LARGEST = -16, 0
 #: Heights of a column's two panels: the derivatives over their differences.
 PAIR_HEIGHTS = (2.2, 1.0)
-#: The error map's colour bar: its gap to the map (inches) and its length over its width (matplotlib's
-#: colour bar beside an axes: pad 0.05 of the axes' width, aspect 20).
+#: The error map's colour bar: its gap to the map in inches (near the 0.05 of the map's width that
+#: matplotlib's colour bar keeps, for maps 3.5 to 5 in wide) and its length over its width (matplotlib's 20).
 BAR_GAP, BAR_ASPECT = 0.2, 20
 
 

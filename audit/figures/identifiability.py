@@ -55,8 +55,8 @@ BEYOND_LABEL = "off-axis asymptotic end (value)"
 BAR_GID, THRESHOLD_GID, FAILED_GID, BEYOND_GID = "profile-interval", "threshold", "refit-failed", "asymptotic-beyond"
 #: Subsets drawn at most in the collinearity figure: the highest indices (the title says so).
 SUBSETS_SHOWN = 30
-#: The correlation map's colour bar: its gap to the map (inches) and its length over its width
-#: (matplotlib's colour bar beside an axes: pad 0.05 of the axes' width, aspect 20).
+#: The correlation map's colour bar: its gap to the map in inches (near the 0.05 of the map's width
+#: that matplotlib's colour bar keeps, for maps 3.5 to 5 in wide) and its length over its width (matplotlib's 20).
 BAR_GAP, BAR_ASPECT = 0.2, 20
 
 
