@@ -1,19 +1,15 @@
 """The sweep's figures, laid out by figures/layout.py from measured texts, checked once drawn: every
-text inside the figure, none over another text or over a panel.
-
-Reference: matplotlib's own extents after the canvas is drawn (Text.get_window_extent,
-Legend.get_window_extent, Axes.get_window_extent), at the size the figure is saved; the layout
-itself measures the texts before the panels are placed, so this checks the placing, not the
-measuring. Cases: the bundled scenario's sweep with both solvers and five step factors (two rows of
-panels with hidden ones, log axes, an outcome chart of two-line labels, the iteration map's colour
-bar) and the twin-optima sweep of tests/twin_optima.py (linear axes, three panels, a narrow figure).
+text inside the figure, none over another text or over a panel (``figure_checks``: matplotlib's own
+extents after the canvas is drawn). Cases: the bundled scenario's sweep with both solvers and five
+step factors (two rows of panels with hidden ones, log axes, an outcome chart of two-line labels,
+the iteration map's colour bar) and the twin-optima sweep of tests/twin_optima.py (linear axes,
+three panels, a narrow figure). The other stages' figures: test_figure_layout_stages.py.
 """
 from __future__ import annotations
 
-import itertools
-
 import pytest
 import twin_optima as twin
+from figure_checks import layout_faults
 
 from audit.figures import sweep as sweep_figures
 from audit.figures import sweep_charts
@@ -23,9 +19,6 @@ from audit.inputs.scenario import load_scenario
 from audit.parallel.plan import ParallelPlan
 from audit.sweep.run import SweepRequest, run_sweep
 from conftest import PROJECT_ROOT
-
-#: Pixels two extents may share (anti-aliasing and rounding of text boxes).
-TOLERANCE = 0.5
 
 
 def drawn_figures(result, folder, monkeypatch) -> dict:
@@ -58,55 +51,6 @@ def twin_sweep(tmp_path_factory):
     (folder / "data.csv").write_text(twin.DATA)
     scenario = load_scenario(folder)
     return run_sweep(scenario, SweepRequest.from_scenario(scenario), ParallelPlan(jobs=1), folder / "cache")
-
-
-def _shown(text) -> bool:
-    return text.get_visible() and bool(text.get_text())
-
-
-def placed_texts(figure) -> list[tuple[tuple, object]]:
-    """((owner, kind), extent) of every text the layout places: headings, figure and outside
-    legends, and of every visible axes its title, axis labels and the tick labels of ticks in view."""
-    renderer = figure.canvas.get_renderer()
-    found = [(("figure", "heading"), text.get_window_extent(renderer)) for text in figure.texts if _shown(text)]
-    found += [(("figure", f"legend {k}"), legend.get_window_extent(renderer))
-              for k, legend in enumerate(figure.legends)]
-    for a, axes in enumerate(figure.axes):
-        if not axes.get_visible():
-            continue
-        if axes.get_legend() is not None:
-            found.append(((a, "legend"), axes.get_legend().get_window_extent(renderer)))
-        for kind, text in (("title", axes.title), ("x label", axes.xaxis.label), ("y label", axes.yaxis.label)):
-            if _shown(text):
-                found.append(((a, kind), text.get_window_extent(renderer)))
-        for name, axis in (("x", axes.xaxis), ("y", axes.yaxis)):
-            low, high = sorted(axis.get_view_interval())
-            for tick in axis.get_major_ticks():
-                if low <= tick.get_loc() <= high:
-                    found += [((a, f"{name} ticks"), label.get_window_extent(renderer))
-                              for label in (tick.label1, tick.label2) if _shown(label)]
-    return found
-
-
-def overlap(one, other) -> bool:
-    return (min(one.x1, other.x1) - max(one.x0, other.x0) > TOLERANCE
-            and min(one.y1, other.y1) - max(one.y0, other.y0) > TOLERANCE)
-
-
-def layout_faults(figure) -> list[str]:
-    """What the drawn figure gets wrong: texts outside it, texts of different owners or kinds over
-    each other, texts over a panel's frame (their own panel's too: they belong outside it)."""
-    figure.canvas.draw()
-    page = figure.bbox
-    texts = placed_texts(figure)
-    faults = [f"{who} outside the figure: {box}" for who, box in texts
-              if box.x0 < page.x0 - TOLERANCE or box.x1 > page.x1 + TOLERANCE
-              or box.y0 < page.y0 - TOLERANCE or box.y1 > page.y1 + TOLERANCE]
-    faults += [f"{one} over {other}" for (one, box), (other, other_box) in itertools.combinations(texts, 2)
-               if one != other and overlap(box, other_box)]
-    frames = [(a, axes.get_window_extent()) for a, axes in enumerate(figure.axes) if axes.get_visible()]
-    faults += [f"{who} over the frame of panel {a}" for who, box in texts for a, frame in frames if overlap(box, frame)]
-    return faults
 
 
 @pytest.mark.parametrize("case", ["bundled", "twin"])

@@ -25,6 +25,7 @@ import twin_optima as twin
 from scipy import stats
 
 from audit import Problem
+from audit.figures import bootstrap as bootstrap_figures
 from audit.figures import identifiability as identifiability_figures
 from audit.figures import sweep_maps
 from audit.figures.style import plt
@@ -35,6 +36,7 @@ from audit.inputs.scenario import load_scenario
 from audit.inputs.settings import IdentifiabilitySettings
 from audit.parallel.plan import ParallelPlan
 from audit.sweep.run import SweepRequest, run_sweep
+from audit.uncertainty.bootstrap import run_bootstrap
 
 X = np.linspace(0.0, 1.0, 20)
 CONFIDENCE = 0.95
@@ -366,3 +368,20 @@ def test_best_fit_and_start_are_marked_on_every_map_panel(cut_twin, basin_figure
         np.testing.assert_allclose(np.column_stack([circle.get_xdata(), circle.get_ydata()]), [twin.START])
         assert star.get_markerfacecolor() == circle.get_markerfacecolor() == "white"
         assert star.get_markersize() > circle.get_markersize()
+
+
+def test_bootstrap_histograms_fill_numpys_histogram_of_the_used_replicates(monkeypatch, tmp_path):
+    # Reference: numpy.histogram(bins="auto", density=True) of each parameter's used replicates. The
+    # filled region of its panel reaches each bin's height at the bin's middle, and no higher.
+    y = 1.0 + 2.0 * X + 0.1 * np.random.default_rng(3).standard_normal(X.size)
+    result = run_bootstrap(Problem(lambda x, a, b: a + b * x, X, y, ("a", "b")), np.polyfit(X, y, 1)[::-1],
+                           samples=300, seed=4)
+    figures = captured(monkeypatch, bootstrap_figures)
+    bootstrap_figures.write_figures(result, tmp_path)
+    used = result.replicates.params[result.replicates.used]
+    for j, axis in enumerate(figures["bootstrap-histograms"].axes[:2]):
+        heights, edges = np.histogram(used[:, j], bins="auto", density=True)
+        for middle, height in zip((edges[1:] + edges[:-1]) / 2, heights):
+            filled = [any(patch.contains_point(axis.transData.transform((middle, level)))
+                          for patch in axis.patches) for level in (0.97 * height, 1.03 * height + 1e-12)]
+            assert filled == [height > 0, False], (j, middle, height)

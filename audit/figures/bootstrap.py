@@ -18,7 +18,8 @@ from scipy import stats
 
 from ..uncertainty.bootstrap import BootstrapResult
 from .drawn_once import drawn_once
-from .style import ASYMPTOTIC, EMPIRICAL, cap_ticks, plt, save
+from .layout import arrange, heading, legend_below, panel_figure, renderer_of
+from .style import ASYMPTOTIC, EMPIRICAL, cap_ticks, save
 
 #: Pairs plots show at most this many parameters (the first ones), so panels stay readable.
 MAX_PAIR_PARAMETERS = 6
@@ -65,8 +66,7 @@ def _histograms(result: BootstrapResult, used: np.ndarray, folder: Path, formats
     n = len(result.names)
     columns = min(n, 3)
     rows = math.ceil(n / columns)
-    figure, axes = plt.subplots(rows, columns, figsize=(PANEL_SIZE * 1.25 * columns, PANEL_SIZE * rows + 0.9),
-                                constrained_layout=True, squeeze=False)
+    figure, axes = panel_figure(rows, columns, (PANEL_SIZE * 1.25 * columns, PANEL_SIZE * rows + 0.9))
     flagged = {}
     for flag in result.flags:
         flagged.setdefault(flag.parameter, []).append(flag.kind)
@@ -81,15 +81,24 @@ def _histograms(result: BootstrapResult, used: np.ndarray, folder: Path, formats
         Line2D([], [], color=EMPIRICAL, lw=1, marker="|", label="percentile interval"),
         Line2D([], [], color=EMPIRICAL, lw=3, marker="|", label="BCa interval"),
     ]
-    figure.legend(handles=handles, loc="outside lower center", ncols=4, frameon=False, fontsize="small")
-    figure.suptitle(_headline(result), fontsize="medium")
+    _finish(figure, axes, _headline(result), handles, 4)
     return save(figure, folder, "bootstrap-histograms", formats)
+
+
+def _finish(figure, axes, title: str, handles: list, columns: int) -> None:
+    """The heading ``title`` above the panels ``axes`` ((rows, columns)), the legend of ``handles``
+    below them (at most ``columns`` columns, fewer where they would not fit), the panels between."""
+    renderer = renderer_of(figure)
+    top = heading(figure, title, renderer, fontsize="medium")
+    _, bottom = legend_below(figure, handles, columns, renderer, fontsize="small")
+    arrange(figure, axes, renderer, top=top, bottom=bottom)
 
 
 def _histogram_panel(ax, result: BootstrapResult, values: np.ndarray, j: int, kinds: list[str]) -> None:
     estimate = result.best[j]
     t_error = result.asymptotic.std_errors[j]
-    heights, _, _ = ax.hist(values, bins="auto", density=True, color=EMPIRICAL, alpha=0.35, linewidth=0)
+    heights, _, _ = ax.hist(values, bins="auto", density=True, histtype="stepfilled", color=EMPIRICAL, alpha=0.35,
+                            linewidth=0)
     ends = [values.min(), values.max()]
     if np.isfinite(t_error) and t_error > 0:
         ends += [result.asymptotic.lower[j], result.asymptotic.upper[j]]
@@ -122,8 +131,7 @@ def _pairs(result: BootstrapResult, used: np.ndarray, folder: Path, formats: tup
     shown = min(len(result.names), MAX_PAIR_PARAMETERS)
     size = shown - 1
     width = max(PANEL_SIZE * size + 0.6, MIN_PAIRS_WIDTH)
-    figure, axes = plt.subplots(size, size, figsize=(width, PANEL_SIZE * size + 0.9),
-                                constrained_layout=True, squeeze=False)
+    figure, axes = panel_figure(size, size, (width, PANEL_SIZE * size + 0.9))
     for row in range(size):
         for column in range(size):
             ax = axes[row, column]
@@ -144,10 +152,8 @@ def _pairs(result: BootstrapResult, used: np.ndarray, folder: Path, formats: tup
                label=f"asymptotic {result.confidence:.0%} joint confidence ellipse"),
         Line2D([], [], color=ESTIMATE_COLOUR, ls="", marker="+", markersize=10, label="best fit"),
     ]
-    figure.legend(handles=handles, loc="outside lower center", ncols=3 if size > 1 else 1, frameon=False,
-                  fontsize="small")
     note = "" if shown == len(result.names) else f" (first {shown} of {len(result.names)} parameters)"
-    figure.suptitle(_headline(result).replace(": ", ":\n", 1) + note, fontsize="medium")
+    _finish(figure, axes, _headline(result).replace(": ", ":\n", 1) + note, handles, 3 if size > 1 else 1)
     return save(figure, folder, "bootstrap-pairs", formats)
 
 

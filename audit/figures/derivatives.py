@@ -20,6 +20,8 @@ from matplotlib.colors import LinearSegmentedColormap
 
 from ..derivatives.check import CENTRAL_POOR, REL_FLOOR, DerivativeAudit
 from .drawn_once import drawn_once
+from .layout import (COLORBAR_SHRINK, arrange, colorbar_beside, colorbar_room, heading, panel_figure, place_colorbar,
+                     renderer_of)
 from .style import EMPIRICAL, OUTCOME_STYLE, plain_text, plt, save
 
 HAND_COLOUR = OUTCOME_STYLE["oscillating"][0]
@@ -29,6 +31,11 @@ BAND_COLOUR = "#d9d9d9"
 ERROR_MAP = LinearSegmentedColormap.from_list("fitaudit_error", ["#f4f1ea", "#9fb7c9", EMPIRICAL, "#0b1a2b"])
 #: Relative errors are drawn on log10 scale between these exponents.
 SMALLEST, LARGEST = -16, 0
+#: Heights of a column's two panels: the derivatives over their differences.
+PAIR_HEIGHTS = (2.2, 1.0)
+#: The error map's colour bar: its gap to the map in inches (near the 0.05 of the map's width that
+#: matplotlib's colour bar keeps, for maps 3.5 to 5 in wide) and its length over its width (matplotlib's 20).
+BAR_GAP, BAR_ASPECT = 0.2, 20
 
 
 @drawn_once()
@@ -46,16 +53,21 @@ def _columns(result: DerivativeAudit, folder: Path, formats: tuple[str, ...]) ->
     n = len(result.names)
     across = min(n, 3)
     down = math.ceil(n / across)
-    figure = plt.figure(figsize=(4.3 * across, 3.9 * down), constrained_layout=True)
-    cells = figure.add_gridspec(down, across)
-    for j in range(n):
-        pair = cells[j // across, j % across].subgridspec(2, 1, height_ratios=(2.2, 1), hspace=0.05)
-        upper = figure.add_subplot(pair[0])
-        lower = figure.add_subplot(pair[1], sharex=upper)
-        _column_panel(result, j, upper, lower)
+    # Each column of the Jacobian is a pair of panels, one above the other: two grid rows per row of pairs.
+    figure, grid = panel_figure(2 * down, across, (4.3 * across, 3.9 * down))
+    for j in range(down * across):
+        upper, lower = grid[2 * (j // across), j % across], grid[2 * (j // across) + 1, j % across]
+        if j < n:
+            lower.sharex(upper)
+            _column_panel(result, j, upper, lower)
+        else:
+            upper.set_visible(False)
+            lower.set_visible(False)
     reference = "exact (from the formula)" if result.reference == "exact" else "numeric (numdifftools)"
-    figure.suptitle(f"Hand-derived partial derivatives against the {reference} ones, at each column's worst point",
-                    fontsize=11)
+    renderer = renderer_of(figure)
+    top = heading(figure, f"Hand-derived partial derivatives against the {reference} ones, at each column's worst "
+                  "point", renderer, fontsize=11)
+    arrange(figure, grid, renderer, top=top, heights=PAIR_HEIGHTS * down)
     return save(figure, folder, "derivatives-columns", formats)
 
 
@@ -122,7 +134,8 @@ def _points(result: DerivativeAudit, folder: Path, formats: tuple[str, ...]) -> 
     hand = result.hand is not None
     errors = result.relative_error if hand else result.central_error
     count, n = errors.shape
-    figure, axes = plt.subplots(figsize=(max(5.6, 1.6 + 1.05 * n), 1.5 + 0.28 * count), constrained_layout=True)
+    figure, grid = panel_figure(1, 1, (max(5.6, 1.6 + 1.05 * n), 1.5 + 0.28 * count))
+    axes = grid[0, 0]
     with np.errstate(divide="ignore"):
         exponent = np.clip(np.log10(np.where(errors > 0, errors, 10.0 ** SMALLEST)), SMALLEST, LARGEST)
     image = axes.imshow(np.ma.masked_invalid(exponent), cmap=ERROR_MAP, vmin=SMALLEST, vmax=LARGEST, aspect="auto")
@@ -153,7 +166,12 @@ def _points(result: DerivativeAudit, folder: Path, formats: tuple[str, ...]) -> 
                  f"unreliable\nred line: {CENTRAL_POOR:.0e}, above which they are too poor")
         line = CENTRAL_POOR
     axes.set_title(title, fontsize=9)
-    colourbar = figure.colorbar(image, ax=axes, shrink=0.8)
+    # Made as wide as a bar along the whole figure's height would be, the most its final length allows.
+    colourbar = colorbar_beside(figure, image, "", COLORBAR_SHRINK * figure.get_figheight(),
+                                width=COLORBAR_SHRINK * figure.get_figheight() / BAR_ASPECT)
     colourbar.set_label("log10(largest |difference| / column size)", fontsize=8)
     colourbar.ax.axhline(math.log10(line), color=WRONG_COLOUR, linewidth=2)
+    renderer = renderer_of(figure)
+    arrange(figure, grid, renderer, right=colorbar_room(colourbar, renderer, BAR_GAP))
+    place_colorbar(figure, grid, colourbar, renderer, BAR_GAP, aspect=BAR_ASPECT)
     return save(figure, folder, "derivatives-points", formats)

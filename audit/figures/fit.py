@@ -18,10 +18,13 @@ from ..engine.band import confidence_band
 from ..engine.estimates import Estimates
 from ..engine.problem import Problem
 from .drawn_once import drawn_once
-from .style import ASYMPTOTIC, EMPIRICAL, plain_text, plt, save
+from .layout import arrange, panel_figure, renderer_of
+from .style import ASYMPTOTIC, EMPIRICAL, plain_text, save
 
 #: Points of the drawn curve across the data's range of the predictor.
 CURVE_POINTS = 400
+#: Heights of the two panels: the data and curve over the data minus the curve.
+HEIGHTS = (2.0, 1.0)
 STEM = "fit-band"
 
 
@@ -91,8 +94,8 @@ def write_figure(problem: Problem, estimates: Estimates, folder: Path, *, x_labe
 @drawn_once()
 def draw_picture(picture: FitPicture, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     """Draw ``picture`` into ``folder/fit-band.<format>`` (see ``write_figure``)."""
-    figure, (axes, below) = plt.subplots(2, 1, figsize=(6.4, 6.4), sharex=True, height_ratios=(2, 1),
-                                         constrained_layout=True)
+    figure, grid = panel_figure(2, 1, (6.4, 6.4), sharex=True)
+    axes, below = grid[:, 0]
     data = dict(fmt="o", markersize=3, color=ASYMPTOTIC, ecolor=ASYMPTOTIC, elinewidth=0.8, zorder=3)
     axes.errorbar(picture.x, picture.y, yerr=picture.sigma,
                   label="data" + (" (±σ)" if picture.sigma is not None else ""), **data)
@@ -116,4 +119,5 @@ def draw_picture(picture: FitPicture, folder: Path, formats: tuple[str, ...]) ->
     axes.legend(fontsize=8)
     below.set_xlabel(plain_text(picture.x_label))
     below.set_ylabel("data − fitted curve")
+    arrange(figure, grid, renderer_of(figure), heights=HEIGHTS)
     return save(figure, folder, STEM, formats)

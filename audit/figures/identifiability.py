@@ -25,7 +25,9 @@ from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 from ..identifiability.analysis import Identifiability
 from ..identifiability.profiles import NOT_WALKED
 from .drawn_once import drawn_once
-from .style import ASYMPTOTIC, EMPIRICAL, legend_columns, plt, save
+from .layout import (COLORBAR_SHRINK, arrange, colorbar_beside, colorbar_room, heading, legend_below, panel_figure,
+                     place_colorbar, renderer_of)
+from .style import ASYMPTOTIC, EMPIRICAL, legend_columns, save
 
 #: Negative → zero → positive, dark to light to dark so that the sign also shows in the cell text.
 CORRELATION_MAP = LinearSegmentedColormap.from_list("fitaudit_correlation", ["#1b3a5c", "#f4f4f4", "#b5651d"])
@@ -53,6 +55,9 @@ BEYOND_LABEL = "off-axis asymptotic end (value)"
 BAR_GID, THRESHOLD_GID, FAILED_GID, BEYOND_GID = "profile-interval", "threshold", "refit-failed", "asymptotic-beyond"
 #: Subsets drawn at most in the collinearity figure: the highest indices (the title says so).
 SUBSETS_SHOWN = 30
+#: The correlation map's colour bar: its gap to the map in inches (near the 0.05 of the map's width
+#: that matplotlib's colour bar keeps, for maps 3.5 to 5 in wide) and its length over its width (matplotlib's 20).
+BAR_GAP, BAR_ASPECT = 0.2, 20
 
 
 @drawn_once()
@@ -68,19 +73,30 @@ def write_figures(result: Identifiability, folder: Path, formats: tuple[str, ...
 
 
 def _panels(count: int, width: float = 3.4, height: float = 2.9):
+    """A figure of ``count`` panels (each about ``width`` × ``height`` inches) in up to three columns,
+    to be laid out by ``_finish``: (figure, (rows, columns) axes array; the spare ones hidden)."""
     columns = min(3, count)
     rows = -(-count // columns)
-    figure, axes = plt.subplots(rows, columns, figsize=(width * columns, height * rows + 0.4),
-                                constrained_layout=True, squeeze=False)
-    for extra in axes.flat[count:]:
+    figure, grid = panel_figure(rows, columns, (width * columns, height * rows + 0.4))
+    for extra in grid.flat[count:]:
         extra.set_visible(False)
-    return figure, axes.flat
+    return figure, grid
+
+
+def _finish(figure, grid, title: str | None = None, handles: list | None = None, columns: int = 1) -> None:
+    """The heading ``title`` above the panels, the legend of ``handles`` below them (at most
+    ``columns`` columns, fewer where they would not fit), and the panels placed between them."""
+    renderer = renderer_of(figure)
+    top = heading(figure, title, renderer, fontsize=11) if title else 0.0
+    bottom = legend_below(figure, handles, columns, renderer)[1] if handles else 0.0
+    arrange(figure, grid, renderer, top=top, bottom=bottom)
 
 
 def _profiles(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     profiles, estimates = result.profiles, result.estimates
     rise = profiles.threshold - profiles.ssr_min
-    figure, axes = _panels(len(result.names))
+    figure, grid = _panels(len(result.names))
+    axes = grid.flat[:len(result.names)]
     any_beyond = False
     for j, (name, axis) in enumerate(zip(result.names, axes)):
         values, ssr = profiles.values[j], profiles.ssr[j]
@@ -113,10 +129,9 @@ def _profiles(result: Identifiability, folder: Path, formats: tuple[str, ...]) -
             axis.xaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
             axis.xaxis.set_minor_formatter(NullFormatter())
         any_beyond |= asymptotic_ends(axis, estimates.lower[j], estimates.upper[j])
-    handles = _profile_legend(axes[:len(result.names)], any_beyond)
+    handles = _profile_legend(axes, any_beyond)
     columns = legend_columns([handle.get_label() for handle in handles], figure.get_figwidth())
-    figure.legend(handles=handles, loc="outside lower center", ncol=columns, fontsize=8, frameon=False)
-    figure.suptitle("Profile likelihood: SSR with each parameter fixed, the others refitted", fontsize=11)
+    _finish(figure, grid, "Profile likelihood: SSR with each parameter fixed, the others refitted", handles, columns)
     return save(figure, folder, "identifiability-profiles", formats)
 
 
@@ -195,7 +210,8 @@ def _correlation(result: Identifiability, folder: Path, formats: tuple[str, ...]
     correlation = result.estimates.correlation
     n = len(result.names)
     size = max(3.6, 0.75 * n + 2.2)
-    figure, axis = plt.subplots(figsize=(size + 1.0, size), constrained_layout=True)
+    figure, grid = panel_figure(1, 1, (size + 1.0, size))
+    axis = grid[0, 0]
     image = axis.imshow(np.ma.masked_invalid(correlation), cmap=CORRELATION_MAP, vmin=-1, vmax=1)
     axis.set_xticks(range(n), result.names, rotation=45, ha="right")
     axis.set_yticks(range(n), result.names)
@@ -207,20 +223,25 @@ def _correlation(result: Identifiability, folder: Path, formats: tuple[str, ...]
             axis.text(j, i, text, ha="center", va="center", fontsize=9,
                       color="white" if np.isfinite(value) and abs(value) > 0.6 else "black",
                       fontweight="bold" if strong else "normal")
-    figure.colorbar(image, ax=axis, shrink=0.8, label="correlation")
     title = "Correlation of the estimates"
     if not np.isfinite(correlation).all():
         title += "\n(— : undefined, the Jacobian is singular)"
     axis.set_title(title, fontsize=11)
+    # Made as wide as a bar along the whole figure's height would be, the most its final length allows.
+    bar = colorbar_beside(figure, image, "correlation", COLORBAR_SHRINK * size,
+                          width=COLORBAR_SHRINK * size / BAR_ASPECT)
+    renderer = renderer_of(figure)
+    arrange(figure, grid, renderer, right=colorbar_room(bar, renderer, BAR_GAP))
+    place_colorbar(figure, grid, bar, renderer, BAR_GAP, aspect=BAR_ASPECT)
     return save(figure, folder, "identifiability-correlation", formats)
 
 
 def _weak_directions(result: Identifiability, folder: Path, formats: tuple[str, ...]) -> list[Path]:
     rows = result.weak[:DIRECTIONS_SHOWN]
     n = len(result.names)
-    figure, axes = _panels(len(rows), width=4.8, height=max(2.6, 0.45 * n + 1.8))
+    figure, grid = _panels(len(rows), width=4.8, height=max(2.6, 0.45 * n + 1.8))
     positions = np.arange(n)
-    for row, text, axis in zip(rows, result.weak_text, axes):
+    for row, text, axis in zip(rows, result.weak_text, grid.flat):
         for position, loading in zip(positions, result.directions[row]):
             axis.barh(position, loading, color=NEGATIVE if loading < 0 else POSITIVE, edgecolor="black",
                       linewidth=0.6, hatch="//" if loading < 0 else None)
@@ -232,8 +253,7 @@ def _weak_directions(result: Identifiability, folder: Path, formats: tuple[str, 
         # Keep each "± coefficient·name" term on one line.
         unbroken = text.replace(" − ", " −\u00a0").replace(" + ", " +\u00a0")
         axis.set_title("\n".join(textwrap.wrap(unbroken, 46)), fontsize=8.5)
-    figure.suptitle(f"Weakest parameter combinations\n(scaled condition number {result.condition_scaled:.3g})",
-                    fontsize=11)
+    _finish(figure, grid, f"Weakest parameter combinations\n(scaled condition number {result.condition_scaled:.3g})")
     return save(figure, folder, "identifiability-weak-directions", formats)
 
 
@@ -248,7 +268,8 @@ def _collinearity(result: Identifiability, folder: Path, formats: tuple[str, ...
     length = np.where(finite, index, reach)
     rows = np.argsort(-length, kind="stable")[:SUBSETS_SHOWN]
     above = length[rows] >= collinearity.limit
-    figure, axis = plt.subplots(figsize=(6.4, max(2.4, 1.6 + 0.22 * len(rows))), constrained_layout=True)
+    figure, grid = panel_figure(1, 1, (6.4, max(2.4, 1.6 + 0.22 * len(rows))))
+    axis = grid[0, 0]
     positions = np.arange(len(rows))
     axis.barh(positions, length[rows] - 1.0, left=1.0, height=0.7, color=np.where(above, THRESHOLD, EMPIRICAL),
               hatch=[COLLINEAR_HATCH if flag else "" for flag in above], edgecolor="black", linewidth=0.5)
@@ -268,8 +289,8 @@ def _collinearity(result: Identifiability, folder: Path, formats: tuple[str, ...
                Patch(facecolor=THRESHOLD, hatch=COLLINEAR_HATCH, edgecolor="black", linewidth=0.5,
                      label="not identifiable"),
                Line2D([], [], color="black", linestyle=":", linewidth=1.2, label=f"limit {collinearity.limit:g}")]
-    figure.legend(handles=handles, loc="outside lower center", ncol=3, fontsize=8, frameon=False)
     which = ("every parameter subset" if len(rows) == len(index)
              else f"the {len(rows)} highest of {len(index)} parameter subsets")
     axis.set_title(f"Collinearity index of {which}", fontsize=11)
+    _finish(figure, grid, handles=handles, columns=3)
     return save(figure, folder, "identifiability-collinearity", formats)

@@ -14,7 +14,8 @@ import numpy as np
 from scipy import stats
 
 from audit.figures.drawn_once import drawn_once
-from audit.figures.style import ASYMPTOTIC, EMPIRICAL, plain_text, plt, save
+from audit.figures.layout import arrange, heading, panel_figure, renderer_of
+from audit.figures.style import ASYMPTOTIC, EMPIRICAL, plain_text, save
 
 if TYPE_CHECKING:
     from audit.residuals import ResidualChecks
@@ -64,9 +65,9 @@ def draw_picture(picture: ResidualPicture, folder: Path, formats: tuple[str, ...
     """Draw ``picture`` into ``folder/residuals.<format>`` (see ``write_figures``)."""
     result, first, fitted, x_label = picture.checks, picture.x, picture.fitted, picture.x_label
     weighted = result.weighted_residuals
-    figure, axes = plt.subplots(1, 3, figsize=(3 * PANEL_WIDTH, PANEL_HEIGHT), constrained_layout=True)
+    figure, grid = panel_figure(1, 3, (3 * PANEL_WIDTH, PANEL_HEIGHT))
 
-    along_x, against_fitted, quantiles = axes
+    along_x, against_fitted, quantiles = axes = grid[0]
     along_x.plot(first[result.order], weighted[result.order], color=EMPIRICAL, lw=0.6, alpha=0.5)
     along_x.scatter(first, weighted, s=14, color=EMPIRICAL, zorder=3)
     _zero_line(along_x)
@@ -91,7 +92,10 @@ def draw_picture(picture: ResidualPicture, folder: Path, formats: tuple[str, ...
 
     for ax in axes:
         ax.ticklabel_format(useOffset=False)
-    figure.suptitle(f"Residual checks: {result.status}; bootstrap scheme suited: {result.scheme}", fontsize="medium")
+    renderer = renderer_of(figure)
+    top = heading(figure, f"Residual checks: {result.status}; bootstrap scheme suited: {result.scheme}", renderer,
+                  fontsize="medium")
+    arrange(figure, grid, renderer, top=top)
     return save(figure, Path(folder), "residuals", formats)
 
 
