@@ -29,8 +29,10 @@ AUDIT_FILE = "audit.json"
 FIGURES = "figures"
 #: The appendix needs both: PNG for HTML and Markdown, PDF for the LaTeX fragment.
 BOTH_FORMATS = ("png", "pdf")
-#: Figure writers to draw from which worker processes pay: each stage's figures take 0.3-1.7 s of
-#: CPU here, and starting workers that import matplotlib costs about a second.
+#: Figure writers to draw from which worker processes pay: each stage's figures take 0.15-1.7 s of
+#: CPU on a fast spell of a two-core machine (the sweep's most, the fit's least), and starting
+#: workers that import matplotlib costs about a second. A fresh audit has six to draw, a rerun
+#: after a changed setting usually one or two.
 WORKERS_PAY_FROM = 3
 
 
