@@ -47,12 +47,17 @@ def _kept(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tup
           **options) -> list[Path] | None:
     """The files of ``result``'s figures recorded in ``folder`` when the record matches and they are
     all there, else None (``options`` say how to draw, not what: they are not digested)."""
-    folder = Path(folder)
+    return _recorded(draw, Path(folder), _digest(result, formats, bookkeeping))
+
+
+def _recorded(draw, folder: Path, digest: str) -> list[Path] | None:
+    """The files recorded in ``folder`` for ``draw`` under ``digest``, if the record says so and
+    they are all there; else None."""
     try:
         kept = json.loads(_record(draw, folder).read_text())
     except (OSError, ValueError):
         return None
-    drawn = kept.get("files") if kept.get("digest") == _digest(result, formats, bookkeeping) else None
+    drawn = kept.get("files") if kept.get("digest") == digest else None
     if drawn is not None and all((folder / name).is_file() for name in drawn):
         return [folder / name for name in drawn]
     return None
@@ -61,14 +66,14 @@ def _kept(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tup
 def _write(draw, bookkeeping: tuple[str, ...], result, folder: Path, formats: tuple[str, ...],
            options: dict) -> list[Path]:
     """The files of ``result``'s figures in ``folder``: those recorded there, or drawn now."""
-    kept = _kept(draw, bookkeeping, result, folder, formats)
+    folder = Path(folder)
+    digest = _digest(result, formats, bookkeeping)
+    kept = _recorded(draw, folder, digest)
     if kept is not None:
         return kept
     paths = draw(result, folder, formats, **options)
-    folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    record = {"digest": _digest(result, formats, bookkeeping), "files": [Path(path).name for path in paths]}
-    _record(draw, folder).write_text(json.dumps(record))
+    _record(draw, folder).write_text(json.dumps({"digest": digest, "files": [Path(path).name for path in paths]}))
     return paths
 
 

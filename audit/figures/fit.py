@@ -61,13 +61,12 @@ def fit_picture(problem: Problem, estimates: Estimates, x_label: str = "x", y_la
     first = x if x.ndim == 1 else x[0]
     sigma = None if problem.weights is None else 1.0 / np.sqrt(problem.weights)
     band = (estimates.params, estimates.covariance, estimates.t_quantile)
-    at_data, _ = confidence_band(problem, *band)
+    at_data, half_at_data = confidence_band(problem, *band)
     if x.ndim == 1:
         where = np.linspace(first.min(), first.max(), CURVE_POINTS)
         fitted, half = confidence_band(problem, *band, where)
     else:
-        where = first
-        fitted, half = confidence_band(problem, *band)
+        where, fitted, half = first, at_data, half_at_data
     return FitPicture(first, np.asarray(problem.y, dtype=float), sigma, at_data, where, fitted, half, x.ndim == 1,
                       estimates.confidence, x_label, y_label)
 
