@@ -74,7 +74,7 @@ def run(args: argparse.Namespace) -> int:
         result = run_audit(scenario, out=args.out, quick=args.quick, plan=plan, on_progress=advance,
                            step_factors=args.step_factors)
         progress.update(task, description="writing files", completed=len(STAGES))
-        files = result.write(args.out, local_mapper(plan, first_here=False))
+        files = result.write(args.out, local_mapper(plan))
     if args.json:
         payload = result.to_dict()
         print_json({key: payload[key] for key in ("verdict", "best_fit", "uncertainty_statement", "not_run")}

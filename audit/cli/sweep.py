@@ -108,7 +108,7 @@ def run(args: argparse.Namespace) -> int:
     # The figures (seconds of drawing) go to the workers the sweep started: matplotlib is then
     # imported there, at the same time, and never in this process.
     files = write_results(result, folder, "sweep",
-                          functools.partial(write_figures, mapper=local_mapper(plan, first_here=False)))
+                          functools.partial(write_figures, mapper=local_mapper(plan)))
     if args.json:
         print_json({**result.to_dict(), "files": [str(path) for path in files]})
     else:

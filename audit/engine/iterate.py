@@ -326,8 +326,8 @@ def _track_reversals(state: _Working, move: np.ndarray, iteration: int) -> None:
     back, last_move = move[reversed_rows], state.last_move[reversed_rows]
     cycling = np.max(np.abs(back + last_move), axis=1, initial=0.0) <= 0.5 * np.max(np.abs(back), axis=1, initial=0.0)
     state.shrinking = length < last_length
-    reversals = np.zeros_like(state.reversals)
-    reversals[reversed_rows[cycling]] = state.reversals[reversed_rows[cycling]] + 1
+    reversals, cycles = np.zeros_like(state.reversals), reversed_rows[cycling]
+    reversals[cycles] = state.reversals[cycles] + 1
     state.reversals = reversals
     state.past_lengths[:, iteration % OSCILLATION_WINDOW] = last_length
     state.oldest_length_slot = (iteration + 1) % OSCILLATION_WINDOW

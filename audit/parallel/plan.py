@@ -98,15 +98,15 @@ def map_chunks(function: Callable[[Any], Any], chunks: Iterable[Any], plan: Para
         yield from parallel(joblib.delayed(function)(chunk) for chunk in chunks)
 
 
-def local_mapper(plan: ParallelPlan, *, first_here: bool = True) -> Callable[[Callable[[Any], Any], Sized],
-                                                                              Iterator[Any]]:
+def local_mapper(plan: ParallelPlan) -> Callable[[Callable[[Any], Any], Sized], Iterator[Any]]:
     """``mapper(function, items)`` over this machine's processes, for work that writes files here
     (figures): a Dask plan's workers may sit on other machines, so it maps over local cores.
 
-    ``first_here=False`` sends every item to the workers (when there are several): for work that
-    pays for them whatever its first item costs, and whose imports this process need not pay."""
+    Every item goes to the workers (when there are several), none is first run here to time it:
+    the callers hand out only drawing that pays for them, and this process need not pay its
+    imports (matplotlib)."""
     local = plan if plan.backend == "processes" else ParallelPlan()
-    return functools.partial(map_chunks, plan=local, first_here=first_here)
+    return functools.partial(map_chunks, plan=local, first_here=False)
 
 
 def watch_parent(parent: int) -> None:

@@ -38,7 +38,7 @@ with tempfile.TemporaryDirectory() as folder:
     started = time.perf_counter()
     result = run_sweep(scenario, SweepRequest.from_scenario(scenario), plan, Path(folder))
     fitted = time.perf_counter()
-    write_figures(result, Path(folder) / "figures", mapper=local_mapper(plan, first_here=False))
+    write_figures(result, Path(folder) / "figures", mapper=local_mapper(plan))
     drawn = time.perf_counter()
 print(json.dumps({"import_s": imported - began, "sweep_s": fitted - started, "figures_s": drawn - fitted}))
 '''
