@@ -275,6 +275,30 @@ def test_collinearity_figure_names_the_highest_subsets_it_keeps(monkeypatch, tmp
     assert f"the {kept} highest of 119" in figure.axes[0].get_title()
 
 
+def test_collinearity_limit_stays_in_sight_when_every_index_is_far_below_it(monkeypatch, tmp_path):
+    # A straight line on x symmetric about 0: the unit columns 1 and x are orthogonal, so the
+    # one subset's γ = 1 / σ_min = 1 exactly (numpy.linalg.svd of orthonormal columns), far below
+    # the limit; the figure's dotted limit line must still fall inside the axis.
+    x = np.linspace(-1.0, 1.0, 21)
+    y = 1.0 + 0.5 * x + 0.01 * np.random.default_rng(3).standard_normal(x.size)
+    unit = np.column_stack([np.ones_like(x), x])
+    unit /= np.linalg.norm(unit, axis=0)
+    assert 1 / np.linalg.svd(unit, compute_uv=False)[-1] == pytest.approx(1.0, rel=1e-12)
+    best = np.polynomial.polynomial.polyfit(x, y, 1)
+    result = analyse(Problem(lambda x, a, b: a + b * x, x, y, ("a", "b")), best, lower=np.full(2, np.nan),
+                     upper=np.full(2, np.nan), log_axis=np.zeros(2, bool),
+                     settings=IdentifiabilitySettings(profile_points=5))
+    figures = captured(monkeypatch, identifiability_figures)
+    identifiability_figures.write_figures(result, tmp_path)
+    axis = figures["identifiability-collinearity"].axes[0]
+    [(_, end)] = bars_and_labels(figures["identifiability-collinearity"])
+    assert end == pytest.approx(1.0, rel=1e-9)
+    limit = result.collinearity.limit
+    assert [line.get_xdata()[0] for line in axis.lines if line.get_linestyle() == ":"] == [limit]
+    left, right = axis.get_xlim()
+    assert left < end and 1.2 * limit < right
+
+
 # ---------------------------------------------------------------- basin maps
 @pytest.fixture(scope="module")
 def cut_twin(tmp_path_factory):

@@ -281,7 +281,8 @@ def _collinearity(result: Identifiability, folder: Path, formats: tuple[str, ...
     # Two rows at least, so that a single subset's bar is not a block filling the panel.
     axis.set_ylim(max(len(rows), 2) - 0.5, -0.5)
     axis.set_xscale("log")
-    axis.set_xlim(0.9, np.max(length) * 4)
+    # Room right of the longest bar for its index; the limit stays in sight when every index is far below it.
+    axis.set_xlim(0.9, max(np.max(length) * 4, collinearity.limit * 2))
     axis.xaxis.set_major_formatter(FuncFormatter(lambda value, _: f"{value:g}"))
     axis.xaxis.set_minor_formatter(NullFormatter())
     axis.set_xlabel("collinearity index γ")
