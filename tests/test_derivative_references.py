@@ -2,16 +2,20 @@
 through the project's wrapper in audit/derivatives/numeric.py)."""
 from __future__ import annotations
 
+import shutil
+import subprocess
+import sys
 from pathlib import Path
 
 import numdifftools
 import numpy as np
 from scenario_files import LOG_RATE_PARAMETERS, scenario_toml
 
-from audit.derivatives.check import audit_derivatives
+from audit.derivatives.check import audit_derivatives, compare_derivatives
 from audit.inputs.scenario import load_scenario
 
-BUNDLED = Path(__file__).resolve().parents[1] / "scenarios" / "probe-cooling"
+ROOT = Path(__file__).resolve().parents[1]
+BUNDLED = ROOT / "scenarios" / "probe-cooling"
 
 
 def numdifftools_columns(problem, point: np.ndarray) -> np.ndarray:
@@ -66,3 +70,42 @@ def test_a_formula_model_is_cross_checked_against_numdifftools(write_scenario):
         np.testing.assert_allclose(direct, by_hand, rtol=1e-8, atol=1e-10)
         np.testing.assert_allclose(audit.hand[k], by_hand, rtol=1e-12, atol=1e-14)
         np.testing.assert_allclose(audit.numeric[k], direct, rtol=1e-8, atol=1e-10)
+
+
+def test_a_rerun_reads_the_exact_reference_back_without_computer_algebra(tmp_path):
+    first = audit_derivatives(load_scenario(BUNDLED), count=4, cache=tmp_path / "cache")
+    assert first.reference == "exact"
+    # The rerun in a fresh interpreter: sympy (computer algebra, about a second to import) must
+    # stay unloaded, and the reference read back must be the one computed.
+    script = ("import sys, numpy as np\nfrom audit.derivatives.check import audit_derivatives\n"
+              "from audit.inputs.scenario import load_scenario\n"
+              f"audit = audit_derivatives(load_scenario({str(BUNDLED)!r}), count=4, cache={str(tmp_path / 'cache')!r})\n"
+              f"np.save({str(tmp_path / 'exact.npy')!r}, audit.exact)\n"
+              "print(audit.reference, 'sympy' in sys.modules)\n")
+    done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, capture_output=True, text=True, check=True)
+    assert done.stdout.split() == ["exact", "False"]
+    again = np.load(tmp_path / "exact.npy")
+    assert np.array_equal(again, first.exact)
+    for k, point in enumerate(first.points):
+        # Reference: numdifftools called here, as in the test of the bundled scenario above.
+        direct = numdifftools_columns(load_scenario(BUNDLED).problem, point)
+        assert np.all(np.abs(again[k] - direct) <= 1e-8 * np.abs(direct).max(axis=1, keepdims=True))
+
+
+def test_a_stored_reference_is_not_used_once_the_model_no_longer_matches_the_formula(tmp_path):
+    folder = tmp_path / "scenario"
+    shutil.copytree(BUNDLED, folder)
+    cache = tmp_path / "cache"
+    scenario = load_scenario(folder)
+    points, labels = np.vstack([scenario.start, 1.1 * scenario.start]), ("start", "beside it")
+    stored = compare_derivatives(scenario.problem, points, labels, predictor_names=scenario.x_names, cache=cache)
+    assert stored.reference == "exact"
+    model = folder / "model.py"
+    model.write_text(model.read_text().replace("return T_env + dT", "return T_env + 1.5 * dT"))
+    changed = compare_derivatives(load_scenario(folder).problem, points, labels, predictor_names=scenario.x_names,
+                                  cache=cache)
+    # The formula's values and derivatives at the same points were stored once and read back;
+    # the changed model's values are compared with them afresh, and it loses the exact reference.
+    assert len(list(cache.iterdir())) == 1
+    assert changed.reference == "numeric"
+    assert any("does not reproduce the model function" in note for note in changed.notes)

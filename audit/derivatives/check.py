@@ -23,17 +23,19 @@ from __future__ import annotations
 import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
 from ..engine.best_fit import KnownFit, SweepReference
 from ..engine.problem import FLOOR_FRACTION, Problem
 from ..errors import InputError
-from ..inputs.formula import CompiledFormula, compile_formula
+from ..inputs.formula import CompiledFormula
 from ..inputs.scenario import Scenario
 from ..jsonable import jsonable
 from .consequences import Consequences, fit_consequences
 from .diagnosis import Diagnosis, Evidence, diagnose, no_hand_derivative
+from .exact import exact_derivatives
 from .numeric import EPS, SAFETY, numeric_derivatives
 from .points import check_points
 
@@ -41,9 +43,6 @@ from .points import check_points
 REL_FLOOR = 1e-6
 #: Central differences off by more than this share of the column are too poor to fit with.
 CENTRAL_POOR = 1e-3
-#: Largest relative difference between the stated formula and the model function for the
-#: formula to count as the same model.
-FORMULA_MATCH = 1e-9
 
 VERDICTS: dict[str, str] = {
     "agrees": "within the tolerance at every element where the reference is reliable",
@@ -177,7 +176,7 @@ class DerivativeAudit:
 
 def audit_derivatives(scenario: Scenario, count: int | None = None,
                       progress: Callable[[str], None] | None = None,
-                      reference: SweepReference | None = None) -> DerivativeAudit:
+                      reference: SweepReference | None = None, cache: Path | None = None) -> DerivativeAudit:
     """The whole audit of a scenario: check points, comparison, diagnosis and consequences.
 
     Args:
@@ -186,6 +185,7 @@ def audit_derivatives(scenario: Scenario, count: int | None = None,
         progress: called with the name of each stage as it starts (for progress bars).
         reference: what a sweep of this scenario found; its in-range reference is the "best
             fit" check point (``derivative_points.check_points``).
+        cache: a folder where the exact reference is kept for a rerun (``exact``; None: not kept).
 
     Raises:
         InputError: for a negative ``count``, or when the model is not finite at any point.
@@ -198,7 +198,7 @@ def audit_derivatives(scenario: Scenario, count: int | None = None,
     points = check_points(scenario.problem, scenario.parameters, scenario.solver, count, scenario.derivatives.seed,
                           reference)
     audit = compare_derivatives(scenario.problem, points.params, points.labels,
-                                predictor_names=scenario.x_names, progress=announce)
+                                predictor_names=scenario.x_names, progress=announce, cache=cache)
     consequences = None
     if audit.wrong_columns:
         announce("consequences")
@@ -210,7 +210,7 @@ def audit_derivatives(scenario: Scenario, count: int | None = None,
 
 def compare_derivatives(problem: Problem, points: np.ndarray, labels: tuple[str, ...] | list[str], *,
                         predictor_names: tuple[str, ...] | None = None, formula: str | None = None,
-                        progress: Callable[[str], None] | None = None) -> DerivativeAudit:
+                        progress: Callable[[str], None] | None = None, cache: Path | None = None) -> DerivativeAudit:
     """Compare the problem's Jacobian with the references at ``points`` (K, n) and diagnose.
 
     Args:
@@ -220,6 +220,7 @@ def compare_derivatives(problem: Problem, points: np.ndarray, labels: tuple[str,
         predictor_names: names of the predictors as the formula uses them (default x, or x1..xk).
         formula: the model's formula (default ``problem.formula``); gives the exact reference.
         progress: called with the name of each stage as it starts.
+        cache: a folder where the exact reference is kept for a rerun (``exact``; None: not kept).
 
     Raises:
         InputError: when ``points`` has the wrong shape or the model is finite at none of them.
@@ -242,7 +243,10 @@ def compare_derivatives(problem: Problem, points: np.ndarray, labels: tuple[str,
     numeric = numeric_derivatives(problem, points)
     announce("comparison")
     source = _jacobian_source(problem)
-    exact, notes = _exact_derivatives(problem, points, formula or problem.formula, predictor_names, source)
+    formula = formula or problem.formula
+    # A formula that made the Jacobian under audit cannot also be its reference.
+    exact, notes = exact_derivatives(problem, points, formula, predictor_names, cache) \
+        if formula and source != "formula" else (None, ())
     true = exact if exact is not None else numeric.values
     usable = numeric.reliable & np.isfinite(true)
     column_scale = np.max(np.where(usable, np.abs(true), 0.0), axis=2)
@@ -287,24 +291,6 @@ def _jacobian_source(problem: Problem) -> str:
     if problem.jacobian is None:
         return "none"
     return "formula" if isinstance(getattr(problem.jacobian, "__self__", None), CompiledFormula) else "hand"
-
-
-def _exact_derivatives(problem: Problem, points: np.ndarray, formula: str | None, predictor_names, source: str):
-    """(exact (K, n, m) or None, notes): the formula's derivatives, if it reproduces the model."""
-    if not formula or source == "formula":
-        return None, ()
-    try:
-        compiled = compile_formula(formula, problem.names, predictor_names, where="[model] formula")
-    except InputError as error:
-        return None, (f"the stated formula cannot be used for exact derivatives: {error}",)
-    symbolic = Problem(model=compiled.model, x=problem.x, y=problem.y, names=problem.names,
-                       jacobian=compiled.jacobian)
-    model_values, formula_values = problem.predict(points), symbolic.predict(points)
-    scale = np.max(np.abs(model_values))
-    if not np.all(np.abs(formula_values - model_values) <= FORMULA_MATCH * scale):
-        return None, (f"the stated formula '{formula}' does not reproduce the model function at the check "
-                      "points, so it is not used as the exact reference",)
-    return symbolic.derivatives(points), ()
 
 
 def _relative_error(values: np.ndarray, true: np.ndarray, usable: np.ndarray, column_scale: np.ndarray) -> np.ndarray:

@@ -72,9 +72,10 @@ def run_audit(path_or_scenario: str | Path | Scenario, *, out: str | Path | None
 
     Args:
         path_or_scenario: a scenario folder, its TOML file, or a loaded ``Scenario``.
-        out: folder for the sweep's and the bootstrap's chunk caches (``out/cache``), reused by a
-            later run with the same settings; None: a temporary folder, nothing reused. Nothing else is written
-            here: ``AuditResult.write(folder)`` writes the files.
+        out: folder for the sweep's and the bootstrap's chunk caches and the derivative check's
+            exact reference (``out/cache``), reused by a later run with the same settings; None: a
+            temporary folder, nothing reused. Nothing else is written here: ``AuditResult.write(folder)``
+            writes the files.
         quick: small designs for a first look: QUICK_POINTS starts, QUICK_RESOLUTION points per
             map axis, QUICK_SAMPLES bootstrap replicates.
         plan: a ``ParallelPlan`` for the sweep, bootstrap and profiles (default: one process; the
@@ -100,7 +101,8 @@ def run_audit(path_or_scenario: str | Path | Scenario, *, out: str | Path | None
     limits = scenario.verdict
 
     report("derivatives", 0.0)
-    derivatives = stages.attempt("derivatives", lambda: audit_derivatives(scenario))
+    derivatives = stages.attempt("derivatives", lambda: audit_derivatives(
+        scenario, cache=None if out is None else Path(out) / "cache"))
     hint = WRONG_DERIVATIVE if derivatives is not None and derivatives.wrong_columns else ""
     report("derivatives", 1.0)
 
