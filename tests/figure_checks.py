@@ -70,3 +70,15 @@ def layout_faults(figure) -> list[str]:
     faults += [f"{who} over the frame of panel {a}" for who, box in texts for a, frame in frames
                if overlap(box, frame) and not (who == (a, "legend") and inside(box, frame))]
     return faults
+
+
+def captured(monkeypatch, module) -> dict:
+    """Keep every figure ``module`` would save, by stem, instead of saving it."""
+    figures: dict = {}
+
+    def keep(figure, folder, stem, formats=("png",)):
+        figures[stem] = figure
+        return []
+
+    monkeypatch.setattr(module, "save", keep)
+    return figures

@@ -118,7 +118,7 @@ def test_layout_keeps_the_ticks_matplotlib_draws_and_no_others(log):
 def default_ticks(axes) -> list[list[float]]:
     """The major ticks matplotlib's default locators put inside the view of an axes of the same size,
     place, scale and limits as ``axes``, in a figure of the same size and resolution, once drawn."""
-    figure = plt.figure(figsize=axes.get_figure(root=True).get_size_inches(), dpi=axes.get_figure(root=True).dpi)
+    figure = plt.figure(figsize=axes.figure.get_size_inches(), dpi=axes.figure.dpi)
     twin_axes = figure.add_axes(axes.get_position().bounds)
     twin_axes.set_xscale(axes.get_xscale())
     twin_axes.set_yscale(axes.get_yscale())

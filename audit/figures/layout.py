@@ -191,7 +191,7 @@ def _offset_size(axis, renderer) -> tuple[float, float]:
 def _loose_text_size(text: str, like, renderer) -> tuple[float, float]:
     """(width, height) in inches ``text`` would take drawn in the font and at the angle of the text ``like``."""
     probe = Text(text=text, fontproperties=like.get_fontproperties(), rotation=like.get_rotation())
-    probe.set_figure(like.get_figure(root=True))
+    probe.set_figure(like.figure)
     return text_size(probe, renderer)
 
 
@@ -308,7 +308,7 @@ def _place(figure, grid: np.ndarray, measured: list[Decorations], top: float, bo
 def _fix_texts(axes, room: Decorations, renderer) -> None:
     """Put the axis labels where matplotlib would (beyond the tick labels, by the label pad) and
     the titles at the frame's top, so that drawing does not measure the ticks again to place them."""
-    figure = axes.get_figure(root=True)
+    figure = axes.figure
     box = axes.get_position()       # where it is drawn: a fixed aspect may have shrunk it in its place
     width, height = box.width * figure.get_figwidth(), box.height * figure.get_figheight()
     axes.yaxis.set_label_coords(-(room.y_ticks + axes.yaxis.labelpad / 72) / width, 0.5)
@@ -354,7 +354,7 @@ def colorbar_beside(figure, image, label: str, height: float, width: float = COL
 def colorbar_room(bar, renderer, gap: float = COLORBAR_GAP) -> float:
     """Inches a colour bar takes right of the panels, ``gap`` included: the ``right`` of ``arrange``."""
     ticks, label = _axis_room(bar.ax.yaxis, renderer, 0, _label_boxes(bar.ax.yaxis, renderer))
-    width = bar.ax.get_position().width * bar.ax.get_figure(root=True).get_figwidth()
+    width = bar.ax.get_position().width * bar.ax.figure.get_figwidth()
     return gap + width + ticks + label
 
 
