@@ -1,5 +1,6 @@
 """Checks of a drawn figure's layout, shared by the figure layout tests: every text the layout places
-inside the figure, none over another text or over a panel's frame.
+inside the figure, none over another text or over a panel's frame; and ``captured``, which keeps the
+figures a drawing module makes instead of saving them, for the tests that look at their artists.
 
 Reference: matplotlib's own extents after the canvas is drawn (Text.get_window_extent,
 Legend.get_window_extent, Axes.get_window_extent), at the size the figure is saved; the layout
@@ -12,6 +13,18 @@ import itertools
 
 #: Pixels two extents may share (anti-aliasing and rounding of text boxes).
 TOLERANCE = 0.5
+
+
+def captured(monkeypatch, module) -> dict:
+    """Keep every figure the drawing module ``module`` would save, by stem, instead of saving it."""
+    figures: dict = {}
+
+    def keep(figure, folder, stem, formats=("png",)):
+        figures[stem] = figure
+        return []
+
+    monkeypatch.setattr(module, "save", keep)
+    return figures
 
 
 def _shown(text) -> bool:
@@ -70,15 +83,3 @@ def layout_faults(figure) -> list[str]:
     faults += [f"{who} over the frame of panel {a}" for who, box in texts for a, frame in frames
                if overlap(box, frame) and not (who == (a, "legend") and inside(box, frame))]
     return faults
-
-
-def captured(monkeypatch, module) -> dict:
-    """Keep every figure ``module`` would save, by stem, instead of saving it."""
-    figures: dict = {}
-
-    def keep(figure, folder, stem, formats=("png",)):
-        figures[stem] = figure
-        return []
-
-    monkeypatch.setattr(module, "save", keep)
-    return figures

@@ -85,3 +85,17 @@ def test_a_sweep_on_two_workers_draws_its_figures_there_and_never_imports_matplo
     drawn = sorted(path.name for path in (tmp_path / "figures").glob("*.png"))
     assert drawn == ["sweep-basins-dT-tau.png", "sweep-cases-map-dT-tau.png", "sweep-cases.png",
                      "sweep-iterations-dT-tau.png", "sweep-outcomes.png"]
+
+
+def test_a_run_whose_figures_go_to_workers_and_its_cached_rerun_never_import_matplotlib_here(tmp_path):
+    # A fresh quick audit has every stage's figures to draw: they go to the two workers, which import
+    # matplotlib side by side while this process waits. Its rerun into the same folder finds every
+    # figure drawn and draws none (figures.drawn_once), on one job as well.
+    audit = ["run", "probe-cooling", "--quick", "--step-factors", "1", "-o", str(tmp_path), "--json"]
+    for jobs in ("2", "1"):
+        argv = [*audit, "--jobs", jobs]
+        run = f"from audit.cli import main\ntry:\n    main({argv!r})\nexcept SystemExit:\n    pass\n"
+        assert not submodules_loaded_by(run, "matplotlib"), f"--jobs {jobs}"
+    drawn = {path.name for path in (tmp_path / "figures").glob("*.png")}
+    assert {"derivatives-points.png", "bootstrap-histograms.png", "identifiability-profiles.png", "residuals.png",
+            "fit-band.png", "sweep-outcomes.png"} <= drawn

@@ -20,12 +20,14 @@ from figure_checks import layout_faults, placed_texts
 from gallery_audit import quick_audit
 
 from audit import Problem
-from audit.figures import bootstrap, derivatives, fit, identifiability, layout, residuals, sweep_charts, sweep_maps
+from audit.figures import (bootstrap_charts, derivatives_charts, fit_charts, identifiability, identifiability_charts,
+                           layout, residuals_charts, sweep_charts, sweep_maps)
 from audit.figures.style import plt
 from audit.identifiability.analysis import analyse
 from audit.inputs.settings import IdentifiabilitySettings
 
-STAGE_MODULES = (derivatives, identifiability, bootstrap, residuals, fit)
+#: The modules that draw (and save) the stages' figures.
+STAGE_CHARTS = (derivatives_charts, identifiability_charts, bootstrap_charts, residuals_charts, fit_charts)
 STAGE_FIGURES = {"derivatives-columns", "derivatives-points", "identifiability-profiles",
                  "identifiability-correlation", "identifiability-weak-directions", "identifiability-collinearity",
                  "bootstrap-histograms", "bootstrap-pairs", "residuals", "fit-band"}
@@ -54,7 +56,7 @@ def stage_figures(name: str, folder, monkeypatch) -> dict:
         plt.close(figure)
         return []
 
-    for module in STAGE_MODULES:
+    for module in STAGE_CHARTS:
         monkeypatch.setattr(module, "save", keeper(figures))
     for module in (sweep_charts, sweep_maps):
         monkeypatch.setattr(module, "save", drop)
@@ -80,7 +82,7 @@ def test_identifiability_figures_of_a_nearly_collinear_quartic_keep_every_text_i
                      np.linalg.lstsq(columns, y, rcond=None)[0], lower=np.full(5, np.nan), upper=np.full(5, np.nan),
                      log_axis=np.zeros(5, bool), settings=IdentifiabilitySettings(profile_points=5))
     figures: dict = {}
-    monkeypatch.setattr(identifiability, "save", keeper(figures))
+    monkeypatch.setattr(identifiability_charts, "save", keeper(figures))
     identifiability.write_figures(result, tmp_path)
     assert sum(axes.get_visible() for axes in figures["identifiability-weak-directions"].axes) == len(result.weak) == 2
     faults = {stem: layout_faults(figure) for stem, figure in figures.items()}

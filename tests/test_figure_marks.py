@@ -1,7 +1,7 @@
 """Figures that cannot be misread: each mark checked on the matplotlib artists of a figure drawn
 from a small hard case, before it is saved.
 
-Hard cases:
+Hard cases (the collinearity figure's are in test_figure_collinearity.py):
 - a straight line y = a + b·x whose intercept's range is narrower than its confidence interval
   (the profile of a is open at both range bounds and both asymptotic ends lie beyond the axis),
   and whose model gives no value for slopes past a cut (the refits of b's profile fail there);
@@ -23,7 +23,9 @@ from scipy import stats
 
 from audit import Problem
 from audit.figures import bootstrap as bootstrap_figures
+from audit.figures import bootstrap_charts
 from audit.figures import identifiability as identifiability_figures
+from audit.figures import identifiability_charts
 from audit.figures import sweep_maps
 from audit.figures.style import plt
 from audit.figures.sweep_outside import OUTSIDE_GID, OUTSIDE_LABEL
@@ -72,7 +74,7 @@ def line_case():
 @pytest.fixture
 def profile_figure(monkeypatch, line_case, tmp_path):
     result, _ = line_case
-    figures = captured(monkeypatch, identifiability_figures)
+    figures = captured(monkeypatch, identifiability_charts)
     identifiability_figures.write_figures(result, tmp_path)
     return figures["identifiability-profiles"]
 
@@ -100,8 +102,8 @@ def test_threshold_is_drawn_over_the_profile_interval_bar(profile_figure):
     # (Axes.draw); the threshold must come after the bar and after an open side's arrow.
     for axis in profile_figure.axes[:2]:
         order = sorted(axis.get_children(), key=lambda artist: artist.zorder)
-        threshold = by_gid(axis, identifiability_figures.THRESHOLD_GID)[0]
-        bar = by_gid(axis, identifiability_figures.BAR_GID)[0]
+        threshold = by_gid(axis, identifiability_charts.THRESHOLD_GID)[0]
+        bar = by_gid(axis, identifiability_charts.BAR_GID)[0]
         arrows = [artist for artist in axis.texts if getattr(artist, "arrow_patch", None) is not None]
         assert all(order.index(threshold) > order.index(artist) for artist in [bar, *arrows])
 
@@ -111,9 +113,9 @@ def test_threshold_colour_shows_inside_the_bar_once_rendered(profile_figure):
     # threshold's colour (its dots), which a bar drawn over it would hide entirely.
     profile_figure.canvas.draw()
     pixels = np.asarray(profile_figure.canvas.buffer_rgba())[..., :3].astype(float)
-    colour = np.array([int(identifiability_figures.THRESHOLD[k:k + 2], 16) for k in (1, 3, 5)], dtype=float)
+    colour = np.array([int(identifiability_charts.THRESHOLD[k:k + 2], 16) for k in (1, 3, 5)], dtype=float)
     for axis in profile_figure.axes[:2]:
-        bar = by_gid(axis, identifiability_figures.BAR_GID)[0]
+        bar = by_gid(axis, identifiability_charts.BAR_GID)[0]
         ends = axis.transData.transform(np.column_stack([bar.get_xdata(), bar.get_ydata()]))
         row = pixels.shape[0] - int(round(ends[0, 1]))
         left, right = sorted(ends[:, 0])
@@ -126,7 +128,7 @@ def test_threshold_colour_shows_inside_the_bar_once_rendered(profile_figure):
 def test_failed_refits_are_marked_on_the_bottom_edge_not_at_an_ssr(profile_figure, line_case):
     result, reference = line_case
     axis = profile_figure.axes[1]                 # b, whose refits fail past the cut
-    marks = by_gid(axis, identifiability_figures.FAILED_GID)
+    marks = by_gid(axis, identifiability_charts.FAILED_GID)
     assert len(marks) == 1
     profiles = result.profiles
     failed = ~np.isfinite(profiles.ssr[1]) & (profiles.outcome[1] != NOT_WALKED)
@@ -141,13 +143,13 @@ def test_failed_refits_are_marked_on_the_bottom_edge_not_at_an_ssr(profile_figur
     np.testing.assert_allclose(after, before)
     bottom, top = axis.get_window_extent().y0, axis.get_window_extent().y1
     assert np.all((after >= bottom - 1) & (after <= bottom + 0.1 * (top - bottom)))
-    assert identifiability_figures.FAILED_LABEL in legend_labels(profile_figure)
+    assert identifiability_charts.FAILED_LABEL in legend_labels(profile_figure)
 
 
 def written_ends(axis) -> list[tuple[float, float]]:
     """(axes-fraction x of the triangle, value written) of every asymptotic end beyond the axis."""
-    marks = [artist for artist in by_gid(axis, identifiability_figures.BEYOND_GID) if hasattr(artist, "get_xdata")]
-    texts = [artist for artist in by_gid(axis, identifiability_figures.BEYOND_GID) if hasattr(artist, "get_text")]
+    marks = [artist for artist in by_gid(axis, identifiability_charts.BEYOND_GID) if hasattr(artist, "get_xdata")]
+    texts = [artist for artist in by_gid(axis, identifiability_charts.BEYOND_GID) if hasattr(artist, "get_text")]
     assert len(marks) == len(texts)
     return sorted((float(mark.get_xdata()[0]), float(text.get_text().replace("−", "-")))
                   for mark, text in zip(marks, texts))
@@ -174,7 +176,7 @@ def test_asymptotic_ends_beyond_the_axis_are_marked_with_their_value(profile_fig
     np.testing.assert_allclose(dashed_lines(b_axis), [expected[1, 0]], rtol=1e-12)
     (edge, value), = written_ends(b_axis)
     assert edge == 1.0 and value == pytest.approx(expected[1, 1], rel=5e-3)
-    assert any(label == identifiability_figures.BEYOND_LABEL for label in legend_labels(profile_figure))
+    assert any(label == identifiability_charts.BEYOND_LABEL for label in legend_labels(profile_figure))
 
 
 def test_no_mark_where_both_asymptotic_ends_are_on_the_axis(monkeypatch, tmp_path):
@@ -186,14 +188,14 @@ def test_no_mark_where_both_asymptotic_ends_are_on_the_axis(monkeypatch, tmp_pat
     half = stats.t.ppf(0.975, X.size - 2) * np.sqrt(ssr[0] / (X.size - 2) * np.diag(np.linalg.inv(design.T @ design)))
     result = analyse(Problem(lambda x, a, b: a + b * x, X, y, ("a", "b")), beta, lower=np.full(2, np.nan),
                      upper=np.full(2, np.nan), log_axis=np.zeros(2, bool))
-    figures = captured(monkeypatch, identifiability_figures)
+    figures = captured(monkeypatch, identifiability_charts)
     identifiability_figures.write_figures(result, tmp_path)
     figure = figures["identifiability-profiles"]
     for j, axis in enumerate(figure.axes[:2]):
         assert written_ends(axis) == []
         np.testing.assert_allclose(dashed_lines(axis), [beta[j] - half[j], beta[j] + half[j]], rtol=1e-12)
-        assert by_gid(axis, identifiability_figures.FAILED_GID) == []
-    assert not any(label == identifiability_figures.BEYOND_LABEL for label in legend_labels(figure))
+        assert by_gid(axis, identifiability_charts.FAILED_GID) == []
+    assert not any(label == identifiability_charts.BEYOND_LABEL for label in legend_labels(figure))
 
 
 # ---------------------------------------------------------------- basin maps
@@ -297,7 +299,7 @@ def test_bootstrap_histograms_fill_numpys_histogram_of_the_used_replicates(monke
     y = 1.0 + 2.0 * X + 0.1 * np.random.default_rng(3).standard_normal(X.size)
     result = run_bootstrap(Problem(lambda x, a, b: a + b * x, X, y, ("a", "b")), np.polyfit(X, y, 1)[::-1],
                            samples=300, seed=4)
-    figures = captured(monkeypatch, bootstrap_figures)
+    figures = captured(monkeypatch, bootstrap_charts)
     bootstrap_figures.write_figures(result, tmp_path)
     used = result.replicates.params[result.replicates.used]
     for j, axis in enumerate(figures["bootstrap-histograms"].axes[:2]):

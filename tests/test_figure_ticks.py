@@ -12,11 +12,14 @@ import pytest
 from audit import Problem
 from audit.cli import main
 from audit.figures import bootstrap as bootstrap_figures
+from audit.figures import bootstrap_charts
 from audit.figures import style
 from audit.uncertainty.bootstrap import run_bootstrap
 from conftest import PROJECT_ROOT
 
-WRITERS = ("bootstrap", "derivatives", "fit", "identifiability", "residuals", "sweep", "sweep_maps")
+#: The modules that draw (and save) every figure of an audit.
+CHARTS = ("bootstrap_charts", "derivatives_charts", "fit_charts", "identifiability_charts", "residuals_charts",
+          "sweep_charts", "sweep_maps")
 
 
 def overlapping_tick_labels(figure) -> list[tuple[str, str, str]]:
@@ -46,10 +49,8 @@ def drawn(tmp_path_factory):
         checked[stem] = overlapping_tick_labels(figure)
         return original(figure, folder, stem, formats=("png",))
 
-    for name in WRITERS:
-        module = importlib.import_module(f"audit.figures.{name}")
-        if hasattr(module, "save"):
-            patch.setattr(module, "save", checking_save)
+    for name in CHARTS:
+        patch.setattr(importlib.import_module(f"audit.figures.{name}"), "save", checking_save)
     try:
         folder = tmp_path_factory.mktemp("figures")
         main(["run", str(PROJECT_ROOT / "scenarios" / "probe-cooling"), "--quick", "--jobs", "1", "-o", str(folder)])
@@ -96,6 +97,6 @@ def test_bootstrap_tick_labels_of_many_digits_do_not_overlap(level, monkeypatch,
         style.plt.close(figure)
         return []
 
-    monkeypatch.setattr(bootstrap_figures, "save", checking_save)
+    monkeypatch.setattr(bootstrap_charts, "save", checking_save)
     bootstrap_figures.write_figures(result, tmp_path)
     assert checked == {"bootstrap-histograms": [], "bootstrap-pairs": []}

@@ -46,8 +46,10 @@ from audit.report.run import run_audit  # noqa: E402
 #: Each stage's figure writer by the field of the AuditResult it draws.
 STAGES = {"derivatives": "derivatives", "sweep": "sweep", "bootstrap": "bootstrap",
           "identifiability": "identifiability", "residuals": "residuals", "fit": "asymptotic"}
-#: Figure modules whose ``save`` ends a figure (the sweep's are drawn by sweep_maps and sweep_charts).
-SAVING_MODULES = ("derivatives", "identifiability", "bootstrap", "residuals", "fit", "sweep_maps", "sweep_charts")
+#: Figure modules whose ``save`` ends a figure: each stage's drawing module (the sweep's are sweep_maps and
+#: sweep_charts). A package copy older than these drew in the stage's own module (the name without "_charts").
+SAVING_MODULES = ("derivatives_charts", "identifiability_charts", "bootstrap_charts", "residuals_charts",
+                  "fit_charts", "sweep_maps", "sweep_charts")
 #: What ``fitaudit run`` writes: PNG for the HTML and Markdown appendix, PDF for LaTeX.
 FORMATS = ("png", "pdf")
 
@@ -59,9 +61,10 @@ class Side:
     def __init__(self, load, result):
         self.figure_times: dict[str, float] = {}
         self._last = 0.0
-        modules = {name: load(f"figures.{name}") for name in SAVING_MODULES + ("sweep", "layout")}
+        modules = {name: load(f"figures.{name}") for name in tuple(STAGES) + ("layout",)}
         for name in SAVING_MODULES:
-            modules[name].save = self._clocked(modules[name].save)
+            drawing = _drawing_module(load, name)
+            drawing.save = self._clocked(drawing.save)
         self.layout = modules["layout"]
         scenario, problem = result.scenario, result.scenario.problem
         x = problem.x if problem.x.ndim == 1 else problem.x.T
@@ -100,6 +103,15 @@ class Side:
             self.writers[stage](folder, FORMATS)
             stage_times[stage] = time.process_time() - start
         return stage_times, dict(self.figure_times)
+
+
+def _drawing_module(load, name: str):
+    """The module ``name`` of a package copy (``load``), or the stage's own module in a copy older than
+    the drawing modules."""
+    try:
+        return load(f"figures.{name}")
+    except ModuleNotFoundError:
+        return load(f"figures.{name.removesuffix('_charts')}")
 
 
 def spread(values: list[float], digits: int = 3) -> dict:

@@ -1,9 +1,11 @@
-"""The collinearity figure: every bar named by its subset with its index, and the limit in sight.
+"""The collinearity figure: every bar named by its subset and as long as its index, checked on the
+matplotlib artists of the figure before it is saved.
 
-Hard cases: polynomials in x with 5 and 7 coefficients (collinearity indices of all 26 and 119
-subsets) and a straight line on x symmetric about 0 (one subset, index exactly 1, far below the
-limit). Reference: γ_K = 1/σ_min of the unit-length columns K (Brun, Reichert & Künsch 2001),
-computed here with numpy.linalg.svd.
+Hard cases:
+- polynomials in x with 5 and 7 coefficients: collinearity indices of all 26 and 119 subsets, each
+  γ_K = 1/σ_min of the unit-length columns K (Brun, Reichert & Künsch 2001), computed here with
+  numpy.linalg.svd;
+- a straight line on x symmetric about 0, whose one subset's index is 1, far below the limit.
 """
 from __future__ import annotations
 
@@ -15,6 +17,7 @@ from figure_checks import captured
 
 from audit import Problem
 from audit.figures import identifiability as identifiability_figures
+from audit.figures import identifiability_charts
 from audit.figures.style import plt
 from audit.identifiability.analysis import analyse
 from audit.inputs.settings import IdentifiabilitySettings
@@ -41,7 +44,7 @@ def polynomial_collinearity(degree: int, monkeypatch, tmp_path):
     result = analyse(Problem(polynomial, x, y, names), best, lower=np.full(len(names), np.nan),
                      upper=np.full(len(names), np.nan), log_axis=np.zeros(len(names), bool),
                      settings=IdentifiabilitySettings(profile_points=5))
-    figures = captured(monkeypatch, identifiability_figures)
+    figures = captured(monkeypatch, identifiability_charts)
     identifiability_figures.write_figures(result, tmp_path)
     # Reference: γ_K = 1 / σ_min(S̃_K), S̃ the columns scaled to unit length (numpy.linalg.svd).
     unit = columns / np.linalg.norm(columns, axis=0)
@@ -79,7 +82,7 @@ def test_every_collinearity_bar_is_named_by_its_subset_with_its_index(monkeypatc
 def test_collinearity_figure_names_the_highest_subsets_it_keeps(monkeypatch, tmp_path):
     figure, gamma = polynomial_collinearity(6, monkeypatch, tmp_path)      # 7 coefficients: 119 subsets
     named = bars_and_labels(figure)
-    kept = identifiability_figures.SUBSETS_SHOWN
+    kept = identifiability_charts.SUBSETS_SHOWN
     assert len(gamma) == 119 and len(named) == kept
     highest = sorted(gamma, key=gamma.get, reverse=True)[:kept]
     assert sorted(label for label, _ in named) == sorted(highest)
@@ -101,7 +104,7 @@ def test_collinearity_limit_stays_in_sight_when_every_index_is_far_below_it(monk
     result = analyse(Problem(lambda x, a, b: a + b * x, x, y, ("a", "b")), best, lower=np.full(2, np.nan),
                      upper=np.full(2, np.nan), log_axis=np.zeros(2, bool),
                      settings=IdentifiabilitySettings(profile_points=5))
-    figures = captured(monkeypatch, identifiability_figures)
+    figures = captured(monkeypatch, identifiability_charts)
     identifiability_figures.write_figures(result, tmp_path)
     axis = figures["identifiability-collinearity"].axes[0]
     [(_, end)] = bars_and_labels(figures["identifiability-collinearity"])
