@@ -25,6 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
+#: The folder under a command's output folder that holds every stage's caches.
+CACHE_FOLDER = "cache"
 #: Raise when the layout of a chunk file changes: old caches are then ignored (changes to the
 #: computation are caught by ``code_digest``).
 CACHE_FORMAT = 5
@@ -37,6 +39,11 @@ CHECKSUM = "checksum"
 #: Suffix of a chunk file being written, and the name pattern that holds its writer's process id.
 PARTIAL = ".partial"
 WRITER = re.compile(r"^\..+-(\d+)-[^-]*\.partial$")
+
+
+def cache_root(out: Path) -> Path:
+    """The folder under the output folder ``out`` that holds every stage's caches."""
+    return Path(out) / CACHE_FOLDER
 
 
 @functools.cache

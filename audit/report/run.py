@@ -25,6 +25,7 @@ from ..engine.estimates import estimate
 from ..errors import InputError
 from ..identifiability.analysis import identify_scenario
 from ..inputs.scenario import Scenario, load_scenario
+from ..parallel.chunk_cache import cache_root
 from ..parallel.plan import ParallelPlan
 from ..residuals.checks import check_residuals
 from ..sweep.result import reference_from_json
@@ -102,7 +103,7 @@ def run_audit(path_or_scenario: str | Path | Scenario, *, out: str | Path | None
 
     report("derivatives", 0.0)
     derivatives = stages.attempt("derivatives", lambda: audit_derivatives(
-        scenario, cache=None if out is None else Path(out) / "cache"))
+        scenario, cache=None if out is None else cache_root(out)))
     hint = WRONG_DERIVATIVE if derivatives is not None and derivatives.wrong_columns else ""
     report("derivatives", 1.0)
 

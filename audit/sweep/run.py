@@ -32,7 +32,7 @@ from .. import __version__
 from ..errors import InputError
 from ..inputs.scenario import solutions_fingerprint
 from ..inputs.settings import nearest
-from ..parallel.chunk_cache import ChunkStore, cache_key, code_digest
+from ..parallel.chunk_cache import ChunkStore, cache_key, cache_root, code_digest
 from ..parallel.plan import ParallelPlan, map_chunks
 from .advice import next_step
 from .cases import CaseSelection, trace_cases
@@ -155,7 +155,7 @@ class _Sweep:
         self.tolerance = SolutionTolerance.for_problem(self.problem, request.tolerance)
         key = cache_key({"fingerprint": scenario.fingerprint, "version": __version__, "code": code_digest(),
                          "chunk": request.starts_per_chunk, **asdict(request)})
-        self.cache = folder / "cache" / f"sweep-{key}"
+        self.cache = cache_root(folder) / f"sweep-{key}"
         self.on_progress, self.on_chunk = on_progress, on_chunk
         self.total = self.design.count + len(request.maps) * request.resolution ** 2
         self.done = self.computed = 0

@@ -29,6 +29,7 @@ from ..engine.problem import Problem
 from ..errors import InputError
 from ..inputs.scenario import Scenario
 from ..jsonable import jsonable
+from ..parallel.chunk_cache import cache_root
 from ..parallel.plan import ParallelPlan
 from .disagreement import Flag, IntervalComparison, compare_intervals
 from .intervals import BcaInterval, bca_interval, jackknife_acceleration, percentile_interval
@@ -327,5 +328,5 @@ def bootstrap_scenario(scenario: Scenario, *, method: str | None = None, samples
                            confidence=settings.confidence, refit=refit,
                            wild_multipliers=wild_multipliers or settings.wild_weights,
                            leverage_adjusted=leverage_adjusted, plan=plan, progress=progress,
-                           cache=None if folder is None else Path(folder) / "cache", fingerprint=scenario.fingerprint)
+                           cache=None if folder is None else cache_root(folder), fingerprint=scenario.fingerprint)
     return replace(result, audited_fit=known)
